@@ -1,0 +1,264 @@
+"""Clustering in PC space: one small interface, k-means and Gaussian mixtures.
+
+Both classes take their parameters in ``__init__``, learn in ``fit`` (which
+returns self) and classify new PCs with ``predict``. Labels are 1..k,
+numbered most frequent first (ties broken by the centroid coordinates), so the
+same data and seed always give the same numbering.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import xarray as xr
+from scipy.special import logsumexp
+from scipy.stats import multivariate_normal
+from sklearn.mixture import GaussianMixture
+
+from .errors import UserError
+
+
+def _as_matrix(pcs: xr.DataArray) -> np.ndarray:
+    return np.asarray(pcs.transpose("sample", "mode").values, dtype=np.float64)
+
+
+def _check_enough(n: int, k: int) -> None:
+    if n < k:
+        raise UserError(f"regimes.k = {k} is larger than the number of selected days ({n}); lower k or select more days")
+
+
+def _frequency_order(labels: np.ndarray, centres: np.ndarray) -> np.ndarray:
+    """Permutation putting clusters most frequent first; ties by centroid coordinates."""
+    k = centres.shape[0]
+    counts = np.bincount(labels, minlength=k)
+    keys = [tuple(-c for c in centres[j]) for j in range(k)]
+    return np.array(sorted(range(k), key=lambda j: (-counts[j], keys[j])))
+
+
+def squared_distances(x: np.ndarray, centres: np.ndarray) -> np.ndarray:
+    """Squared Euclidean distances, batched over restarts.
+
+    Parameters
+    ----------
+    x : array (n, d)
+    centres : array (r, k, d)
+
+    Returns
+    -------
+    array (r, n, k), float64, clipped at 0.
+    """
+    cross = np.einsum("nd,rkd->rnk", x, centres, optimize=True)
+    d2 = (x**2).sum(1)[None, :, None] - 2 * cross + (centres**2).sum(2)[:, None, :]
+    return np.maximum(d2, 0.0)
+
+
+def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Generator) -> np.ndarray:
+    """k-means++ seeding (Arthur & Vassilvitskii 2007), all restarts at once.
+
+    Returns
+    -------
+    array (restarts, k, d) of initial centres picked among the rows of ``x``.
+    """
+    n = x.shape[0]
+    chosen = np.empty((restarts, k), dtype=np.intp)
+    chosen[:, 0] = rng.integers(n, size=restarts)
+    closest = squared_distances(x, x[chosen[:, :1]])[:, :, 0]
+    for j in range(1, k):
+        total = closest.sum(1, keepdims=True)
+        cumulative = np.cumsum(closest, axis=1)
+        draw = rng.random((restarts, 1)) * total
+        pick = np.minimum((cumulative < draw).sum(1), n - 1)
+        degenerate = total[:, 0] <= 0
+        pick[degenerate] = rng.integers(n, size=int(degenerate.sum()))
+        chosen[:, j] = pick
+        closest = np.minimum(closest, squared_distances(x, x[pick][:, None, :])[:, :, 0])
+    return x[chosen]
+
+
+def batched_lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300, tol: float = 1e-10):
+    """Lloyd iterations for many restarts at once.
+
+    Parameters
+    ----------
+    x : array (n, d)
+    centres : array (r, k, d)
+        Initial centres of each restart.
+
+    Returns
+    -------
+    centres : array (r, k, d)
+    labels : array (r, n)
+    inertia : array (r,)
+        Within-cluster sum of squared distances of each restart.
+    """
+    r, k, _ = centres.shape
+    centres = centres.copy()
+    active = np.ones(r, dtype=bool)
+    labels = np.zeros((r, x.shape[0]), dtype=np.intp)
+    for _ in range(max_iterations):
+        d2 = squared_distances(x, centres[active])
+        new = d2.argmin(2)
+        onehot = (new[:, :, None] == np.arange(k)[None, None, :]).astype(np.float64)
+        counts = onehot.sum(1)
+        sums = np.einsum("rnk,nd->rkd", onehot, x, optimize=True)
+        old = centres[active]
+        updated = np.where(counts[:, :, None] > 0, sums / np.maximum(counts, 1)[:, :, None], old)
+        empty = counts == 0
+        if empty.any():
+            far = d2.min(2).argmax(1)
+            rows, cols = np.nonzero(empty)
+            updated[rows, cols] = x[far[rows]]
+        shift = ((updated - old) ** 2).sum((1, 2))
+        unchanged = (new == labels[active]).all(1)
+        index = np.flatnonzero(active)
+        centres[index] = updated
+        labels[index] = new
+        done = unchanged | (shift <= tol * max(1.0, float((x**2).sum())))
+        active[index[done]] = False
+        if not active.any():
+            break
+    d2 = squared_distances(x, centres)
+    labels = d2.argmin(2)
+    inertia = np.take_along_axis(d2, labels[:, :, None], 2)[:, :, 0].sum(1)
+    return centres, labels, inertia
+
+
+class KMeansRegimes:
+    """k-means regimes in PC space with many seeded restarts.
+
+    Restarts are seeded by k-means++ and run together (vectorised over
+    restarts); the restart with the smallest within-cluster sum of squares is
+    kept. Regime analysis with k-means on leading PCs: Michelangeli, Vautard &
+    Legras (1995), J. Atmos. Sci. 52, 1237-1256.
+
+    Parameters
+    ----------
+    k : int
+        Number of regimes.
+    restarts : int
+        Number of k-means++ restarts.
+    max_iterations : int
+        Lloyd iterations per restart at most.
+    rng : numpy.random.Generator
+        The job's random generator.
+
+    Attributes
+    ----------
+    centroids_ : DataArray (regime, mode)
+        Regime centroids in PC space (regime = 1..k, most frequent first).
+    labels_ : DataArray (sample)
+        Regime of each fitted sample.
+    inertia_ : float
+        Within-cluster sum of squared distances of the kept restart.
+    """
+
+    method = "kmeans"
+
+    def __init__(self, k: int = 4, restarts: int = 100, max_iterations: int = 300, rng: np.random.Generator | None = None):
+        self.k = k
+        self.restarts = restarts
+        self.max_iterations = max_iterations
+        self.rng = rng if rng is not None else np.random.default_rng(0)
+
+    def fit(self, pcs: xr.DataArray) -> "KMeansRegimes":
+        """Fit on PCs with dims ``(sample, mode)``."""
+        x = _as_matrix(pcs)
+        _check_enough(x.shape[0], self.k)
+        start = kmeans_plus_plus(x, self.k, self.restarts, self.rng)
+        centres, labels, inertia = batched_lloyd(x, start, self.max_iterations)
+        best = int(np.argmin(inertia))
+        order = _frequency_order(labels[best], centres[best])
+        self.centroids_ = xr.DataArray(
+            centres[best][order], dims=("regime", "mode"), coords={"regime": np.arange(1, self.k + 1), "mode": pcs["mode"].values}
+        )
+        self.inertia_ = float(inertia[best])
+        self.labels_ = self.predict(pcs)
+        return self
+
+    def distances(self, pcs: xr.DataArray) -> xr.DataArray:
+        """Euclidean distance of each sample to each centroid, dims ``(sample, regime)``."""
+        d2 = squared_distances(_as_matrix(pcs), self.centroids_.values[None])[0]
+        return xr.DataArray(np.sqrt(d2), dims=("sample", "regime"), coords={"sample": pcs["sample"], "regime": self.centroids_["regime"]})
+
+    def predict(self, pcs: xr.DataArray) -> xr.DataArray:
+        """Nearest-centroid regime (1..k) of each sample."""
+        d = self.distances(pcs)
+        return (d.argmin("regime") + 1).astype("int8").rename("label")
+
+
+class GaussianMixtureRegimes:
+    """Gaussian-mixture regimes in PC space (full covariances, seeded restarts).
+
+    Fitted by expectation-maximisation (scikit-learn ``GaussianMixture``);
+    the restart of highest likelihood is kept. Mixture-model regimes: Smyth,
+    Ide & Ghil (1999), J. Atmos. Sci. 56, 3704-3723. BIC = -2 ln L + p ln N
+    (Schwarz 1978, Ann. Stat. 6, 461-464).
+
+    Attributes
+    ----------
+    centroids_ : DataArray (regime, mode)
+        Component means (regime = 1..k, most frequent first).
+    covariances_ : DataArray (regime, mode, mode_)
+    mixing_weights_ : DataArray (regime)
+    labels_ : DataArray (sample)
+        Most probable regime of each fitted sample.
+    bic_, aic_ : float
+        Information criteria of the fit.
+    """
+
+    method = "gaussian-mixture"
+
+    def __init__(self, k: int = 4, restarts: int = 10, max_iterations: int = 300, rng: np.random.Generator | None = None):
+        self.k = k
+        self.restarts = restarts
+        self.max_iterations = max_iterations
+        self.rng = rng if rng is not None else np.random.default_rng(0)
+
+    def fit(self, pcs: xr.DataArray) -> "GaussianMixtureRegimes":
+        """Fit on PCs with dims ``(sample, mode)``."""
+        x = _as_matrix(pcs)
+        _check_enough(x.shape[0], self.k)
+        gm = GaussianMixture(
+            n_components=self.k,
+            covariance_type="full",
+            n_init=self.restarts,
+            max_iter=self.max_iterations,
+            random_state=int(self.rng.integers(2**31 - 1)),
+        ).fit(x)
+        order = _frequency_order(gm.predict(x), gm.means_)
+        regime = np.arange(1, self.k + 1)
+        mode = pcs["mode"].values
+        self.centroids_ = xr.DataArray(gm.means_[order], dims=("regime", "mode"), coords={"regime": regime, "mode": mode})
+        self.covariances_ = xr.DataArray(
+            gm.covariances_[order], dims=("regime", "mode", "mode_"), coords={"regime": regime, "mode": mode, "mode_": mode}
+        )
+        self.mixing_weights_ = xr.DataArray(gm.weights_[order], dims="regime", coords={"regime": regime})
+        self.bic_ = float(gm.bic(x))
+        self.aic_ = float(gm.aic(x))
+        self.labels_ = self.predict(pcs)
+        return self
+
+    def probabilities(self, pcs: xr.DataArray) -> xr.DataArray:
+        """Membership probability of each sample in each regime, dims ``(sample, regime)``.
+
+        Posterior ``w_j N(x; mu_j, S_j) / sum_i w_i N(x; mu_i, S_i)``, computed in log space.
+        """
+        x = _as_matrix(pcs)
+        log_density = np.stack(
+            [
+                np.log(w) + multivariate_normal(mean=m, cov=c).logpdf(x)
+                for w, m, c in zip(self.mixing_weights_.values, self.centroids_.values, self.covariances_.values)
+            ],
+            axis=-1,
+        ).reshape(x.shape[0], self.k)
+        p = np.exp(log_density - logsumexp(log_density, axis=1, keepdims=True))
+        return xr.DataArray(p, dims=("sample", "regime"), coords={"sample": pcs["sample"], "regime": self.centroids_["regime"]})
+
+    def predict(self, pcs: xr.DataArray) -> xr.DataArray:
+        """Most probable regime (1..k) of each sample."""
+        return (self.probabilities(pcs).argmax("regime") + 1).astype("int8").rename("label")
+
+
+def make_clusterer(method: str, k: int, restarts: int, max_iterations: int, rng: np.random.Generator):
+    """The clustering object for a config's ``regimes.method``."""
+    kinds = {"kmeans": KMeansRegimes, "gaussian-mixture": GaussianMixtureRegimes}
+    return kinds[method](k=k, restarts=restarts, max_iterations=max_iterations, rng=rng)

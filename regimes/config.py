@@ -1,0 +1,315 @@
+"""The TOML job description: schema, defaults and validation.
+
+This module is the only place where defaults live. A config is validated
+completely before any data is read; every problem is reported as a
+:class:`~regimes.errors.UserError` naming the key path, the value and what is
+allowed. Config files are data: nothing in them is evaluated.
+"""
+
+from __future__ import annotations
+
+import difflib
+import re
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from types import SimpleNamespace
+from typing import Any, Callable
+
+from .errors import UserError
+
+_DATE = re.compile(r"^\d{4}-\d{2}-\d{2}$")
+
+
+@dataclass(frozen=True)
+class Key:
+    """One config key: its default, a checker and a line of documentation."""
+
+    default: Any
+    check: Callable[[str, Any], Any]
+    doc: str
+    example: Any = None
+    required: bool = False
+
+
+# --------------------------------------------------------------------------
+# value checkers: each takes (key path, value) and returns the clean value
+# --------------------------------------------------------------------------
+
+
+def _fail(path: str, value: Any, expected: str) -> UserError:
+    return UserError(f"config key '{path}' = {value!r}: expected {expected}; fix it in the config file")
+
+
+def _boolean(path, value):
+    if not isinstance(value, bool):
+        raise _fail(path, value, "true or false")
+    return value
+
+
+def _integer(low=None, high=None):
+    def check(path, value):
+        ok = isinstance(value, int) and not isinstance(value, bool)
+        if not ok or (low is not None and value < low) or (high is not None and value > high):
+            span = f" from {low}" if low is not None else ""
+            span += f" to {high}" if high is not None else (" upward" if low is not None else "")
+            raise _fail(path, value, f"a whole number{span}")
+        return value
+
+    return check
+
+
+def _fraction(path, value):
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value <= 1:
+        raise _fail(path, value, "a number in (0, 1]")
+    return float(value)
+
+
+def _choice(*allowed):
+    def check(path, value):
+        if value not in allowed:
+            raise _fail(path, value, "one of " + ", ".join(repr(a) for a in allowed))
+        return value
+
+    return check
+
+
+def _text(path, value):
+    if not isinstance(value, str) or not value.strip():
+        raise _fail(path, value, "a non-empty string")
+    return value
+
+
+def _optional(check):
+    def wrapped(path, value):
+        return None if value is None else check(path, value)
+
+    return wrapped
+
+
+def _paths(path, value):
+    if isinstance(value, str):
+        value = [value]
+    if not isinstance(value, list) or not value or not all(isinstance(v, str) and v for v in value):
+        raise _fail(path, value, "a file name, glob pattern, or a list of them")
+    return value
+
+
+def _pair_of_numbers(low, high):
+    def check(path, value):
+        if (
+            not isinstance(value, list)
+            or len(value) != 2
+            or not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in value)
+            or not all(low <= v <= high for v in value)
+        ):
+            raise _fail(path, value, f"two numbers between {low} and {high}, e.g. [{low}, {high}]")
+        return [float(v) for v in value]
+
+    return check
+
+
+def _number(path, value):
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise _fail(path, value, "a number")
+    return float(value)
+
+
+def _period(path, value):
+    if (
+        not isinstance(value, list)
+        or len(value) != 2
+        or not all(isinstance(v, str) and _DATE.match(v) for v in value)
+        or value[0] > value[1]
+    ):
+        raise _fail(path, value, 'two dates "YYYY-MM-DD", the first not after the second')
+    return list(value)
+
+
+def _months(path, value):
+    if (
+        not isinstance(value, list)
+        or not value
+        or not all(isinstance(m, int) and not isinstance(m, bool) and 1 <= m <= 12 for m in value)
+        or len(set(value)) != len(value)
+    ):
+        raise _fail(path, value, "a list of distinct month numbers 1..12, e.g. [12, 1, 2]")
+    return list(value)
+
+
+def _names(path, value):
+    if not isinstance(value, list) or not all(isinstance(v, str) and v.strip() for v in value):
+        raise _fail(path, value, "a list of non-empty strings")
+    if len(set(value)) != len(value):
+        raise _fail(path, value, "distinct names")
+    return list(value)
+
+
+# --------------------------------------------------------------------------
+# the schema
+# --------------------------------------------------------------------------
+
+SCHEMA: dict[str, dict[str, Key]] = {
+    "data": {
+        "paths": Key(None, _paths, "NetCDF files or glob patterns, relative to this config file", ["data/*.nc"], required=True),
+        "variable": Key(None, _text, "name of the variable to classify", "psl", required=True),
+        "lat": Key(None, _optional(_pair_of_numbers(-90, 90)), "latitude range [south, north] in degrees; either order", [20.0, 80.0]),
+        "lon": Key(
+            None,
+            _optional(_pair_of_numbers(-180, 360)),
+            "longitude range [west, east] in degrees east, in either convention; west > east crosses the 180 meridian",
+            [-90.0, 30.0],
+        ),
+        "level": Key(None, _optional(_number), "vertical level to select, in the file's vertical units (e.g. 500 for hPa)", 500),
+        "period": Key(None, _optional(_period), 'first and last day ["YYYY-MM-DD", "YYYY-MM-DD"]', ["1981-01-01", "2010-12-31"]),
+        "months": Key(None, _optional(_months), "months of the season; a season may span the new year, e.g. [12, 1, 2]; each season is labelled by the year it starts in", [12, 1, 2]),
+        "drop_incomplete_days": Key(False, _boolean, "drop days on which some grid points are missing (otherwise such days are an error)"),
+        "chunk_days": Key(365, _integer(1), "days per dask chunk when reading; results do not depend on it"),
+    },
+    "anomalies": {
+        "climatology": Key("daily", _choice("daily", "monthly", "none"), "daily: day-of-year mean smoothed by harmonics; monthly: calendar-month mean; none: use the field as it is"),
+        "harmonics": Key(3, _integer(1, 60), "harmonics of the annual cycle kept in a daily climatology"),
+        "base_period": Key(None, _optional(_period), "period the climatology is computed over (default: all selected years)", ["1981-01-01", "2010-12-31"]),
+        "detrend": Key(False, _boolean, "remove a least-squares linear trend from the anomalies at each grid point"),
+        "running_mean_days": Key(0, _integer(0), "centred running mean over this many days (0 or 1: none)"),
+    },
+    "eof": {
+        "weighting": Key("coslat", _choice("coslat", "cell-area", "none"), "coslat: sqrt(cos lat); cell-area: sqrt of cell area from bounds or a cell-area variable; none"),
+        "modes": Key(10, _integer(1), "number of EOF modes kept (ignored when variance_fraction is set)"),
+        "variance_fraction": Key(None, _optional(_fraction), "keep the fewest modes that explain this fraction of variance", 0.8),
+        "solver": Key("auto", _choice("auto", "exact", "randomized"), "exact eigen-decomposition, randomized SVD, or auto (by matrix size)"),
+    },
+    "regimes": {
+        "method": Key("kmeans", _choice("kmeans", "gaussian-mixture"), "clustering method in PC space"),
+        "k": Key(4, _integer(1, 50), "number of regimes"),
+        "restarts": Key(100, _integer(1), "number of seeded restarts; the best one is kept"),
+        "seed": Key(1, _integer(0), "seed of the one random generator of the job"),
+        "names": Key(None, _optional(_names), "names of the regimes 1..k (most frequent first)", ["first", "second", "third", "fourth"]),
+        "min_duration_days": Key(0, _integer(0), "episodes shorter than this are not counted in duration statistics (0: all)"),
+        "max_iterations": Key(300, _integer(1), "iteration limit of each restart"),
+    },
+    "output": {
+        "dir": Key("out", _text, "output folder, relative to this config file"),
+    },
+}
+
+
+def _suggest(word: str, options) -> str:
+    close = difflib.get_close_matches(word, list(options), n=1, cutoff=0.6)
+    return f"; did you mean '{close[0]}'?" if close else f"; known keys: {', '.join(options)}"
+
+
+def validate(raw: dict, base_dir: Path | str = ".") -> SimpleNamespace:
+    """Check a parsed config against the schema and fill in defaults.
+
+    Parameters
+    ----------
+    raw : dict
+        The parsed TOML document.
+    base_dir : path
+        Folder that relative paths in the config refer to (the config's folder).
+
+    Returns
+    -------
+    types.SimpleNamespace
+        One attribute per section, each a SimpleNamespace of keys. ``data.paths``
+        and ``output.dir`` are absolute.
+
+    Raises
+    ------
+    UserError
+        On an unknown section or key (with the nearest known name), a missing
+        required key, or a value outside what is allowed.
+    """
+    base_dir = Path(base_dir)
+    sections = {}
+    for name in raw:
+        if name not in SCHEMA:
+            raise UserError(f"config section '[{name}]' is unknown{_suggest(name, SCHEMA)}")
+        if not isinstance(raw[name], dict):
+            raise UserError(f"config entry '{name}' must be a section [{name}]")
+    for section, keys in SCHEMA.items():
+        given = raw.get(section, {})
+        for key in given:
+            if key not in keys:
+                raise UserError(f"config key '{section}.{key}' is unknown{_suggest(key, keys)}")
+        values = {}
+        for key, spec in keys.items():
+            if key in given:
+                values[key] = spec.check(f"{section}.{key}", given[key])
+            elif spec.required:
+                raise UserError(f"config key '{section}.{key}' is required ({spec.doc}); add it to [{section}]")
+            else:
+                values[key] = spec.default
+        sections[section] = SimpleNamespace(**values)
+    cfg = SimpleNamespace(**sections)
+    _check_together(cfg)
+    cfg.data.paths = [str((base_dir / p)) if not Path(p).is_absolute() else p for p in cfg.data.paths]
+    cfg.output.dir = str((base_dir / cfg.output.dir).resolve())
+    return cfg
+
+
+def _check_together(cfg: SimpleNamespace) -> None:
+    """Rules that involve more than one key."""
+    names = cfg.regimes.names
+    if names is not None and len(names) != cfg.regimes.k:
+        raise UserError(
+            f"config key 'regimes.names' has {len(names)} names but regimes.k = {cfg.regimes.k}; give one name per regime"
+        )
+    if cfg.anomalies.climatology == "none" and cfg.anomalies.base_period is not None:
+        raise UserError("config key 'anomalies.base_period' is set but anomalies.climatology = 'none'; remove one of them")
+
+
+def load(path: str | Path) -> tuple[SimpleNamespace, str]:
+    """Read and validate a TOML config file.
+
+    Returns
+    -------
+    config : types.SimpleNamespace
+        Validated config (see :func:`validate`).
+    text : str
+        The file's text, kept for provenance.
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise UserError(f"config file '{path}' not found; check the path (or write one with 'regimes init')") from None
+    except (OSError, UnicodeDecodeError) as err:
+        raise UserError(f"config file '{path}' cannot be read ({err}); check the file") from None
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise UserError(f"config file '{path}' is not valid TOML: {err}; fix the file") from None
+    return validate(raw, path.resolve().parent), text
+
+
+def _toml_value(value: Any) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
+    if isinstance(value, list):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    return repr(value)
+
+
+def reference_text(overrides: dict | None = None) -> str:
+    """A commented TOML config listing every key with its default.
+
+    Keys without a default are shown commented out with an example value,
+    unless ``overrides`` (``{"section": {"key": value}}``) gives a value.
+    """
+    overrides = overrides or {}
+    lines = ["# regimes job description (TOML). Paths are relative to this file.", ""]
+    for section, keys in SCHEMA.items():
+        lines.append(f"[{section}]")
+        for key, spec in keys.items():
+            lines.append(f"# {spec.doc}")
+            value = overrides.get(section, {}).get(key, spec.default)
+            if value is None:
+                lines.append(f"# {key} = {_toml_value(spec.example)}")
+            else:
+                lines.append(f"{key} = {_toml_value(value)}")
+        lines.append("")
+    return "\n".join(lines)

@@ -1,0 +1,169 @@
+"""Weighted, centred EOF analysis (PCA) of a (sample x feature) field.
+
+Two solvers:
+
+* ``exact``: the small cross-product matrix (feature x feature covariance, or
+  sample x sample Gram matrix, whichever is smaller) is accumulated in float64
+  over chunks and fully eigen-decomposed (``numpy.linalg.eigh``).
+* ``randomized``: the randomized range finder with power iterations of Halko,
+  Martinsson & Tropp (2011, SIAM Review 53, 217-288), streamed over the
+  sample chunks by ``dask.array.linalg.svd_compressed``; memory is a few
+  multiples of (sample x modes) and (modes x feature).
+
+EOFs of the area-weighted field are the eigenvectors of its covariance
+(Hannachi, Jolliffe & Stephenson 2007, Int. J. Climatol. 27, 1119-1152).
+Sampling errors of the eigenvalues follow North, Bell, Cahalan & Moeng
+(1982, Mon. Wea. Rev. 110, 699-706): ``delta lambda = lambda sqrt(2 / N)``.
+"""
+
+from __future__ import annotations
+
+import dask
+import dask.array as dsa
+import numpy as np
+import xarray as xr
+
+from .errors import UserError
+
+EXACT_LIMIT = 3000
+"""Largest min(samples, features) for which ``solver='auto'`` picks the exact solver."""
+
+RANDOMIZED_OVERSAMPLING = 10
+RANDOMIZED_POWER_ITERATIONS = 6
+
+
+def _orient(vectors: np.ndarray) -> np.ndarray:
+    """Flip each row so that its entry of largest magnitude is positive (a fixed sign convention)."""
+    biggest = vectors[np.arange(vectors.shape[0]), np.argmax(np.abs(vectors), axis=1)]
+    return vectors * np.where(biggest < 0, -1.0, 1.0)[:, None]
+
+
+class EOF:
+    """Weighted EOF analysis with a choice of exact or randomized solver.
+
+    Parameters
+    ----------
+    modes : int
+        Number of modes to keep (an upper bound when ``variance_fraction`` is set).
+    variance_fraction : float, optional
+        Keep the fewest modes whose variance fractions add up to at least this.
+    solver : {'auto', 'exact', 'randomized'}
+        ``auto`` is exact when min(samples, features) <= ``EXACT_LIMIT``.
+    seed : int
+        Seed of the randomized solver.
+
+    Attributes
+    ----------
+    mean_ : DataArray (feature)
+        Sample mean of the unweighted field (field units).
+    weights_ : DataArray (feature)
+        The weights used.
+    components_ : DataArray (mode, feature)
+        Unit-norm EOFs of the weighted field.
+    eigenvalues_ : DataArray (mode)
+        Variance of each PC (field units squared).
+    variance_fraction_ : DataArray (mode)
+        Fraction of the total weighted variance.
+    eigenvalue_error_ : DataArray (mode)
+        North et al. (1982) sampling error of each eigenvalue.
+    solver_ : str
+        The solver that ran.
+    """
+
+    def __init__(self, modes: int = 10, variance_fraction: float | None = None, solver: str = "auto", seed: int = 0):
+        self.modes = modes
+        self.variance_fraction = variance_fraction
+        self.solver = solver
+        self.seed = seed
+
+    def fit(self, field: xr.DataArray, weights: xr.DataArray) -> "EOF":
+        """Fit on ``field`` (dims ``sample``, ``feature``) with ``weights`` (``feature``)."""
+        n, p = field.sizes["sample"], field.sizes["feature"]
+        if n < 2:
+            raise UserError(f"only {n} sample(s) selected; an EOF analysis needs at least 2; widen the period or season")
+        self.weights_ = weights
+        w = weights.values
+        x = dsa.asarray(field.data).astype(np.float64)
+        mean, squares = dask.compute(x.mean(axis=0), (x**2).sum(axis=0))
+        total_variance = float((w**2 * (squares - n * mean**2)).sum() / (n - 1))
+        if not total_variance > 0:
+            raise UserError("the selected field does not vary in time (zero variance); check the variable, box and period")
+        centred = (x - mean[None, :]) * w[None, :]
+        limit = min(n, p) if self.variance_fraction else min(self.modes, n, p)
+        self.solver_ = self.solver if self.solver != "auto" else ("exact" if min(n, p) <= EXACT_LIMIT else "randomized")
+        if self.solver_ == "exact":
+            values, vectors = self._exact(centred, n, p)
+        else:
+            values, vectors = self._randomized(centred, min(limit, 200), n)
+        keep = min(self.modes, values.size)
+        fraction = values / total_variance
+        if self.variance_fraction:
+            reached = np.flatnonzero(np.cumsum(fraction) >= self.variance_fraction - 1e-12)
+            if reached.size == 0:
+                raise UserError(
+                    f"eof.variance_fraction = {self.variance_fraction} is not reached by the {values.size} modes computed "
+                    "(they explain {:.3f}); lower it or set eof.solver = 'exact'".format(fraction.sum())
+                )
+            keep = int(reached[0]) + 1
+        mode = np.arange(1, keep + 1)
+        feature = field["feature"]
+        self.mean_ = xr.DataArray(mean, dims="feature", coords=feature.coords)
+        self.components_ = xr.DataArray(_orient(vectors[:keep]), dims=("mode", "feature"), coords={"mode": mode, **feature.coords})
+        self.eigenvalues_ = xr.DataArray(values[:keep], dims="mode", coords={"mode": mode})
+        self.variance_fraction_ = xr.DataArray(fraction[:keep], dims="mode", coords={"mode": mode})
+        self.eigenvalue_error_ = self.eigenvalues_ * np.sqrt(2.0 / n)
+        self.total_variance_ = total_variance
+        self.n_samples_ = n
+        return self
+
+    @staticmethod
+    def _exact(centred: dsa.Array, n: int, p: int) -> tuple[np.ndarray, np.ndarray]:
+        if p <= n:
+            cov = dask.compute(centred.T @ centred)[0] / (n - 1)
+            values, vectors = np.linalg.eigh(cov)
+            order = np.argsort(values)[::-1]
+            return np.clip(values[order], 0, None), vectors[:, order].T
+        gram = dask.compute(centred @ centred.T)[0] / (n - 1)
+        values, u = np.linalg.eigh(gram)
+        order = np.argsort(values)[::-1]
+        values, u = np.clip(values[order], 0, None), u[:, order]
+        positive = values > values[0] * 1e-12
+        values, u = values[positive], u[:, positive]
+        vectors = dask.compute(centred.T @ u)[0] / np.sqrt(values * (n - 1))[None, :]
+        return values, vectors.T
+
+    def _randomized(self, centred: dsa.Array, k: int, n: int) -> tuple[np.ndarray, np.ndarray]:
+        centred = centred.rechunk({1: -1})
+        k = min(k, min(centred.shape) - 1) if min(centred.shape) > 1 else 1
+        _, s, vt = dsa.linalg.svd_compressed(
+            centred,
+            k,
+            n_power_iter=RANDOMIZED_POWER_ITERATIONS,
+            n_oversamples=RANDOMIZED_OVERSAMPLING,
+            seed=np.random.RandomState(self.seed),
+            compute=False,
+        )
+        s, vt = dask.compute(s, vt)
+        return s**2 / (n - 1), vt
+
+    def transform(self, field: xr.DataArray) -> xr.DataArray:
+        """Principal components of ``field`` (dims ``sample``, ``feature``), lazy.
+
+        Returns
+        -------
+        DataArray (sample, mode)
+            Projections of the weighted, centred field on the EOFs (units: field units).
+        """
+        w = self.weights_.values
+        x = (dsa.asarray(field.data).astype(np.float64) - self.mean_.values[None, :]) * w[None, :]
+        pcs = x @ self.components_.values.T
+        return xr.DataArray(pcs, dims=("sample", "mode"), coords={"sample": field["sample"], "mode": self.components_["mode"]})
+
+    def patterns(self) -> xr.DataArray:
+        """EOF patterns in physical units (field units per standard deviation of the PC).
+
+        ``pattern = component / weight * sqrt(eigenvalue)``: the anomaly
+        associated with a one-standard-deviation PC. Points of zero weight are NaN.
+        """
+        w = self.weights_.where(self.weights_ > 0)
+        return self.components_ / w * np.sqrt(self.eigenvalues_)

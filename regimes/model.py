@@ -1,0 +1,77 @@
+"""The saved regime model: everything needed to classify other data later.
+
+A :class:`RegimeModel` is one xarray Dataset (selection, climatology
+coefficients, weights, EOFs, centroids / mixture parameters, names) stored as
+NetCDF, never pickle. The file carries a format version and a SHA-256
+checksum of its arrays, verified when it is loaded.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from .errors import UserError
+
+FORMAT_VERSION = 1
+
+
+def checksum(ds: xr.Dataset) -> str:
+    """SHA-256 over the names, shapes and bytes of every variable, in sorted order."""
+    h = hashlib.sha256()
+    for name in sorted(ds.variables):
+        values = np.ascontiguousarray(ds[name].values)
+        h.update(name.encode())
+        h.update(str(values.shape).encode())
+        h.update(values.tobytes() if values.dtype.kind not in "OUS" else "|".join(map(str, values.ravel())).encode())
+    return h.hexdigest()
+
+
+class RegimeModel:
+    """A fitted regime model held as an xarray Dataset.
+
+    Parameters
+    ----------
+    dataset : xarray.Dataset
+        Variables ``mask``, ``weight`` (grid), ``climatology`` (term, grid),
+        ``eof_mean`` (grid), ``eof`` (mode, grid), ``eigenvalue`` (mode),
+        ``centroid`` (regime, mode), for mixtures ``covariance`` and
+        ``mixing_weight``; attribute ``settings`` (JSON of the selection and
+        method settings).
+    """
+
+    def __init__(self, dataset: xr.Dataset):
+        self.dataset = dataset
+
+    @property
+    def settings(self) -> dict:
+        """Selection, anomaly and method settings the model was fitted with."""
+        return json.loads(self.dataset.attrs["settings"])
+
+    def stamped(self, attrs: dict | None = None) -> xr.Dataset:
+        """The dataset to write, with extra global ``attrs``, the format version and the checksum."""
+        ds = self.dataset.copy()
+        ds.attrs.update(attrs or {})
+        ds.attrs["model_format_version"] = FORMAT_VERSION
+        ds.attrs["model_checksum"] = checksum(ds)
+        return ds
+
+    @classmethod
+    def load(cls, path: str | Path) -> "RegimeModel":
+        """Read a model file; refuse one of another format or whose arrays changed."""
+        try:
+            with xr.open_dataset(path, engine="netcdf4") as opened:
+                ds = opened.load()
+        except (OSError, ValueError, RuntimeError) as err:
+            raise UserError(f"model file '{path}' cannot be read ({err}); give a model.nc written by 'regimes run'") from None
+        version = ds.attrs.get("model_format_version")
+        if version != FORMAT_VERSION:
+            raise UserError(f"model file '{path}' has format version {version!r}, expected {FORMAT_VERSION}; refit the model with this version")
+        stored = ds.attrs.get("model_checksum")
+        if stored != checksum(ds):
+            raise UserError(f"model file '{path}' fails its checksum (corrupted or edited); refit or restore the model")
+        return cls(ds)

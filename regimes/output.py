@@ -1,0 +1,138 @@
+"""Writing results: CF-1.8 attributes, provenance, atomic files, the output folder.
+
+Every file is written under a temporary name in the target folder and
+renamed when complete, so an interrupted run leaves nothing under a final
+name (CF conventions 1.8 for the attributes: flag_values/flag_meanings in
+section 3.5, cell_methods in section 7.3, coordinates in chapter 4).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import os
+import sys
+from importlib import metadata
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from .errors import UserError
+
+PACKAGES = ("regimes", "numpy", "scipy", "xarray", "dask", "netCDF4", "scikit-learn", "cftime")
+
+
+def versions() -> str:
+    """Versions of Python and the packages that shape the results, one string."""
+    parts = [f"python {sys.version.split()[0]}"]
+    for name in PACKAGES:
+        try:
+            parts.append(f"{name} {metadata.version(name)}")
+        except metadata.PackageNotFoundError:
+            parts.append(f"{name} unknown")
+    return "; ".join(parts)
+
+
+def provenance(command: str, config_text: str | None, inputs: list[str]) -> dict[str, str]:
+    """Global attributes recording how a file was made."""
+    now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    attrs = {
+        "Conventions": "CF-1.8",
+        "history": f"{now}: {command}",
+        "source": f"regimes {_own_version()}",
+        "package_versions": versions(),
+        "input_files": "\n".join(inputs),
+    }
+    if config_text is not None:
+        attrs["config"] = config_text
+    return attrs
+
+
+def _own_version() -> str:
+    try:
+        return metadata.version("regimes")
+    except metadata.PackageNotFoundError:
+        return "unknown"
+
+
+def flag_meanings(names: list[str]) -> str:
+    """CF ``flag_meanings``: blank-separated words, so spaces in names become underscores."""
+    return " ".join("_".join(str(n).split()) for n in names)
+
+
+def coordinate_attrs(ds: xr.Dataset) -> xr.Dataset:
+    """Set the CF attributes of the standard coordinates present in ``ds``."""
+    known = {
+        "lat": {"standard_name": "latitude", "units": "degrees_north", "axis": "Y", "long_name": "latitude"},
+        "lon": {"standard_name": "longitude", "units": "degrees_east", "axis": "X", "long_name": "longitude"},
+        "time": {"standard_name": "time", "axis": "T", "long_name": "time"},
+        "regime": {"long_name": "regime number (1 = most frequent)", "units": "1"},
+        "mode": {"long_name": "EOF mode number", "units": "1"},
+    }
+    for name, attrs in known.items():
+        if name in ds.coords:
+            keep = {k: v for k, v in ds[name].attrs.items() if k in ("positive", "calendar", "bounds")}
+            ds[name].attrs = {**attrs, **keep}
+    for name in ("level",):
+        if name in ds.coords:
+            ds[name].attrs.setdefault("long_name", "vertical level")
+    return ds
+
+
+def check_folder(folder: str | Path, overwrite: bool, inputs: list[str]) -> Path:
+    """Refuse an existing output folder without ``overwrite``, or one that holds an input file."""
+    folder = Path(folder).resolve()
+    if folder.exists() and not folder.is_dir():
+        raise UserError(f"output folder '{folder}' is an existing file; choose another output.dir")
+    if folder.exists() and any(folder.iterdir()) and not overwrite:
+        raise UserError(f"output folder '{folder}' already exists; pass --overwrite or choose another output folder")
+    for path in inputs:
+        if Path(path).resolve().parent == folder or folder in Path(path).resolve().parents:
+            raise UserError(f"output folder '{folder}' contains the input file '{path}'; choose an output folder apart from the inputs")
+    return folder
+
+
+def _encoding(ds: xr.Dataset) -> dict:
+    enc = {}
+    for name, var in ds.variables.items():
+        e = {}
+        if var.dtype.kind == "f":
+            e["_FillValue"] = np.float32(np.nan) if var.dtype == np.float32 else np.nan
+            if var.ndim >= 1 and name not in ds.dims:
+                e.update(zlib=True, complevel=4)
+        elif var.dtype.kind in "iu" or var.dtype.kind == "b":
+            e["_FillValue"] = None
+        if name == "time" or (var.dtype.kind == "O" and name in ds.coords and "time" in name):
+            e["units"] = "days since 1850-01-01"
+        enc[name] = e
+    return enc
+
+
+def write(ds: xr.Dataset, path: Path) -> Path:
+    """Write ``ds`` to ``path`` atomically (temporary name in the same folder, then rename)."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.partial-{os.getpid()}")
+    try:
+        ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=_encoding(ds))
+        os.replace(tmp, path)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+    return path
+
+
+def write_all(files: dict[str, xr.Dataset], folder: Path, overwrite: bool) -> list[Path]:
+    """Write several result files into ``folder``, each atomically.
+
+    With ``overwrite``, result files of an earlier run that this run does not
+    produce are removed, so the folder holds one run only.
+    """
+    folder.mkdir(parents=True, exist_ok=True)
+    written = [write(ds, folder / name) for name, ds in files.items()]
+    if overwrite:
+        for stale in folder.glob("*.nc"):
+            if stale.name not in files:
+                stale.unlink()
+    return written
+
