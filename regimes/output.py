@@ -92,18 +92,21 @@ def check_folder(folder: str | Path, overwrite: bool, inputs: list[str]) -> Path
     return folder
 
 
+def _is_time(var: xr.Variable) -> bool:
+    return var.dtype.kind == "M" or (var.dtype.kind == "O" and var.size > 0 and hasattr(var.values.flat[0], "calendar"))
+
+
 def _encoding(ds: xr.Dataset) -> dict:
+    """Per-variable encoding: no fill value on coordinates, 32-bit integers, float64 day counts for times."""
     enc = {}
     for name, var in ds.variables.items():
-        e = {}
-        if var.dtype.kind == "f":
-            e["_FillValue"] = np.float32(np.nan) if var.dtype == np.float32 else np.nan
-            if var.ndim >= 1 and name not in ds.dims:
-                e.update(zlib=True, complevel=4)
-        elif var.dtype.kind in "iu" or var.dtype.kind == "b":
-            e["_FillValue"] = None
-        if name == "time" or (var.dtype.kind == "O" and name in ds.coords and "time" in name):
-            e["units"] = "days since 1850-01-01"
+        e: dict = {"_FillValue": None} if name in ds.dims else {}
+        if _is_time(var):
+            e.update(units="days since 1850-01-01", dtype="float64", _FillValue=None)
+        elif var.dtype.kind == "f" and name not in ds.dims:
+            e.update(_FillValue=np.nan, zlib=True, complevel=4)
+        elif var.dtype.kind in "iu" and var.dtype.itemsize > 4:
+            e["dtype"] = "int32"
         enc[name] = e
     return enc
 

@@ -44,14 +44,14 @@ def labels_file(cfg, prep, found) -> xr.Dataset:
         "flag_meanings": flag_meanings(regime_names(cfg)),
     })
     if clusterer.method == "kmeans":
-        ds["distance"] = (("time", "regime"), clusterer.distances(pcs).values.astype(np.float32), {
+        ds["distance"] = (("regime", "time"), clusterer.distances(pcs).values.T.astype(np.float32), {
             "long_name": "Euclidean distance to the regime centroid in PC space", "units": units,
         })
     else:
-        ds["probability"] = (("time", "regime"), clusterer.probabilities(pcs).values.astype(np.float32), {
+        ds["probability"] = (("regime", "time"), clusterer.probabilities(pcs).values.T.astype(np.float32), {
             "long_name": "membership probability of each regime", "units": "1",
         })
-    ds["pc"] = (("time", "mode"), pcs.values.astype(np.float32), {"long_name": "principal component (weighted anomaly projected on the EOF)", "units": units})
+    ds["pc"] = (("mode", "time"), pcs.values.T.astype(np.float32), {"long_name": "principal component (weighted anomaly projected on the EOF)", "units": units})
     ds["season_year"] = ("time", prep.season_year.astype(np.int32), {"long_name": "year in which the season of this time step starts", "units": "1"})
     ds["segment_start"] = ("time", prep.segment_start.astype(np.int8), {
         "long_name": "first time step after a gap or a season boundary",
@@ -75,6 +75,7 @@ def composites_file(cfg, prep, found) -> xr.Dataset:
     t = prep.template
     units = t.attrs.get("units", "1")
     name = t.name
+    times = found["pcs"]["sample"].values
     ds = xr.Dataset(coords=_regime_coords(cfg))
     ds["anomaly_composite"] = _grid(prep, anomaly_mean).assign_attrs(
         long_name=f"mean anomaly of {name} over the days of each regime", units=units, cell_methods="time: mean"
@@ -86,6 +87,7 @@ def composites_file(cfg, prep, found) -> xr.Dataset:
     if "standard_name" in t.attrs:
         field_attrs["standard_name"] = t.attrs["standard_name"]
     ds["field_composite"] = _grid(prep, raw_mean).assign_attrs(field_attrs)
+    ds = ds.assign_coords(time=((), times[0], {"comment": f"composites over the days of each regime from {str(times[0])[:10]} to {str(times[-1])[:10]}"}))
     ds["day_count"] = ("regime", anomaly_sums["count"].values.astype(np.int32), {"long_name": "number of days in each regime", "units": "1"})
     return ds.transpose("regime", ...)
 
@@ -158,14 +160,16 @@ def model_dataset(cfg, prep, found) -> xr.Dataset:
     ds["weight"] = _grid(prep, prep.weights).assign_attrs(long_name="EOF weight", units="1")
     ds["eof_mean"] = _grid(prep, eof.mean_).assign_attrs(long_name="mean anomaly of the fitted samples", units=prep.template.attrs.get("units", "1"))
     ds["eof"] = _grid(prep, eof.components_).assign_attrs(long_name="unit-norm EOF of the weighted field", units="1")
-    ds["eigenvalue"] = eof.eigenvalues_
+    ds["eigenvalue"] = eof.eigenvalues_.assign_attrs(long_name="variance of the PC")
     ds["centroid"] = clusterer.centroids_.assign_attrs(long_name="regime centroid in PC space")
     if clusterer.method == "gaussian-mixture":
         ds["covariance"] = clusterer.covariances_.assign_attrs(long_name="regime covariance in PC space")
         ds["mixing_weight"] = clusterer.mixing_weights_.assign_attrs(long_name="mixture weight", units="1")
     if prep.climatology is not None:
         clim = prep.climatology.astype(np.float64)
-        ds["climatology"] = clim.assign_coords(term=[str(t) for t in clim["term"].values]).assign_attrs(long_name="climatology coefficients on the time basis")
+        ds["climatology"] = clim.drop_vars("term").assign_attrs(
+            long_name="climatology coefficients on the time basis", terms=" ".join(str(t) for t in clim["term"].values)
+        )
     settings = {
         "variable": cfg.data.variable,
         "units": prep.template.attrs.get("units"),
