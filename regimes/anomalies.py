@@ -13,6 +13,7 @@ import dask.array as dsa
 import numpy as np
 import xarray as xr
 
+from .data import day_numbers, select_period
 from .errors import UserError
 
 _LEAP_CALENDARS = {"standard", "gregorian", "proleptic_gregorian", "julian", "mixed"}
@@ -68,8 +69,6 @@ def month_basis(time: xr.DataArray) -> xr.DataArray:
 
 def trend_basis(time: xr.DataArray) -> xr.DataArray:
     """Constant and linear time (in years since the first step) columns."""
-    from .data import day_numbers
-
     years = day_numbers(time) / 365.25
     return xr.DataArray(
         np.stack([np.ones_like(years), years - years.mean()], axis=1),
@@ -95,7 +94,7 @@ def fit(field: xr.DataArray, basis: xr.DataArray) -> xr.DataArray:
         Coefficients, dims ``term`` plus the non-time dims of ``field``.
     """
     b = basis.sel(time=field["time"])
-    present = b.sum("time") > 0
+    present = (b != 0).any("time")
     b = b.isel(term=np.flatnonzero(present.values))
     gram = b.values.T @ b.values
     if np.linalg.matrix_rank(gram) < gram.shape[0]:
@@ -143,9 +142,7 @@ def climatology_coefficients(
     if kind == "none":
         return None, None
     basis = basis_for(kind, field["time"], harmonics)
-    base = field if base_period is None else field.sel(time=slice(*base_period))
-    if base.sizes["time"] == 0:
-        raise UserError(f"anomalies.base_period = {base_period} contains no time step of the data; choose a period inside the data")
+    base = field if base_period is None else select_period(field, base_period, "anomalies.base_period")
     return basis, fit(base, basis)
 
 

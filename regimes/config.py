@@ -18,7 +18,7 @@ from typing import Any, Callable
 
 from .errors import UserError
 
-_DATE = re.compile(r"^\d{4}-\d{2}-\d{2}$")
+_DATE = re.compile(r"^\d{4}-(0[1-9]|1[0-2])-(0[1-9]|[12]\d|3[01])$")
 
 
 @dataclass(frozen=True)
@@ -256,6 +256,9 @@ def _check_together(cfg: SimpleNamespace) -> None:
         raise UserError(
             f"config key 'regimes.names' has {len(names)} names but regimes.k = {cfg.regimes.k}; give one name per regime"
         )
+    days = cfg.anomalies.running_mean_days
+    if days > 1 and days % 2 == 0:
+        raise UserError(f"config key 'anomalies.running_mean_days' = {days}: a centred running mean needs an odd number of days; use {days + 1} or {days - 1}")
     if cfg.anomalies.climatology == "none" and cfg.anomalies.base_period is not None:
         raise UserError("config key 'anomalies.base_period' is set but anomalies.climatology = 'none'; remove one of them")
 

@@ -280,10 +280,19 @@ def select(
             )
         da = da.isel(level=int(hit[0]))
     if period is not None:
-        da = da.sel(time=slice(period[0], period[1]))
-        if da.sizes["time"] == 0:
-            raise UserError(f"data.period = {period} selects no time step of '{name}'; check the period against the files")
+        da = select_period(da, period, "data.period")
     return da.chunk({d: -1 for d in da.dims if d != "time"})
+
+
+def select_period(da: xr.DataArray, period: list[str], key: str) -> xr.DataArray:
+    """Time steps from ``period[0]`` to ``period[1]`` inclusive; ``key`` names the config key in errors."""
+    try:
+        out = da.sel(time=slice(period[0], period[1]))
+    except (TypeError, ValueError, KeyError) as err:
+        raise UserError(f"{key} = {period} is not a valid period in the data's calendar ({err}); give days that exist in it") from None
+    if out.sizes["time"] == 0:
+        raise UserError(f"{key} = {period} selects no time step of '{da.name}'; check the period against the files")
+    return out
 
 
 def season_start(months: list[int]) -> int:

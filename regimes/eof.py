@@ -140,7 +140,7 @@ class EOF:
             k,
             n_power_iter=RANDOMIZED_POWER_ITERATIONS,
             n_oversamples=RANDOMIZED_OVERSAMPLING,
-            seed=np.random.RandomState(self.seed),
+            seed=self.seed,
             compute=False,
         )
         s, vt = dask.compute(s, vt)

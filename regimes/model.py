@@ -20,14 +20,23 @@ from .errors import UserError
 FORMAT_VERSION = 1
 
 
+def _canonical(values: np.ndarray) -> bytes:
+    """Bytes of an array independent of its on-disk type: float64, int64, or joined text."""
+    if values.dtype.kind == "f":
+        return np.ascontiguousarray(values, dtype=np.float64).tobytes()
+    if values.dtype.kind in "iub":
+        return np.ascontiguousarray(values, dtype=np.int64).tobytes()
+    return "|".join(map(str, values.ravel())).encode()
+
+
 def checksum(ds: xr.Dataset) -> str:
-    """SHA-256 over the names, shapes and bytes of every variable, in sorted order."""
+    """SHA-256 over the names, shapes and values of every variable, in sorted order."""
     h = hashlib.sha256()
     for name in sorted(ds.variables):
-        values = np.ascontiguousarray(ds[name].values)
+        values = np.asarray(ds[name].values)
         h.update(name.encode())
         h.update(str(values.shape).encode())
-        h.update(values.tobytes() if values.dtype.kind not in "OUS" else "|".join(map(str, values.ravel())).encode())
+        h.update(_canonical(values))
     return h.hexdigest()
 
 

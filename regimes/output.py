@@ -68,6 +68,7 @@ def coordinate_attrs(ds: xr.Dataset) -> xr.Dataset:
         "time": {"standard_name": "time", "axis": "T", "long_name": "time"},
         "regime": {"long_name": "regime number (1 = most frequent)", "units": "1"},
         "mode": {"long_name": "EOF mode number", "units": "1"},
+        "mode_": {"long_name": "EOF mode number (second index of a covariance)", "units": "1"},
     }
     for name, attrs in known.items():
         if name in ds.coords:
