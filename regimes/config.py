@@ -308,7 +308,7 @@ def reference_text(overrides: dict | None = None) -> str:
     for section, keys in SCHEMA.items():
         lines.append(f"[{section}]")
         for key, spec in keys.items():
-            lines.append(f"# {spec.doc}")
+            lines.append(f"# {spec.doc}" + (" (required)" if spec.required else ""))
             value = overrides.get(section, {}).get(key, spec.default)
             if value is None:
                 lines.append(f"# {key} = {_toml_value(spec.example)}")
