@@ -167,7 +167,11 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "chunk_days": Key(365, _integer(1), "days per dask chunk when reading; results do not depend on it"),
     },
     "anomalies": {
-        "climatology": Key("daily", _choice("daily", "monthly", "none"), "daily: day-of-year mean smoothed by harmonics; monthly: calendar-month mean; none: use the field as it is"),
+        "climatology": Key(
+            "auto",
+            _choice("auto", "daily", "monthly", "none"),
+            "daily: day-of-year mean smoothed by harmonics; monthly: calendar-month mean; auto: daily for daily data, monthly for monthly data; none: use the field as it is",
+        ),
         "harmonics": Key(3, _integer(1, 60), "harmonics of the annual cycle kept in a daily climatology"),
         "base_period": Key(None, _optional(_period), "period the climatology is computed over (default: all selected years)", ["1981-01-01", "2010-12-31"]),
         "detrend": Key(False, _boolean, "remove a least-squares linear trend from the anomalies at each grid point"),

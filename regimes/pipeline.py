@@ -44,6 +44,7 @@ class Prepared:
     layout: Layout
     template: xr.DataArray  # the selected field (lazy), for coordinates and attributes
     climatology: xr.DataArray | None  # (term, lat, lon) coefficients
+    climatology_kind: str  # 'daily', 'monthly' or 'none'
     segment_start: np.ndarray  # (sample) bool
     season_year: np.ndarray  # (sample) int
     summary: dict
@@ -70,7 +71,8 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
     field, keep = drop_missing(field, d.drop_incomplete_days)
     layout = Layout(field.isel(time=0, drop=True), keep)
 
-    basis, coefficients = anomalies.climatology_coefficients(field, a.climatology, a.harmonics, a.base_period)
+    kind = data.time_step_kind(field["time"]) if a.climatology == "auto" else a.climatology
+    basis, coefficients = anomalies.climatology_coefficients(field, kind, a.harmonics, a.base_period)
     if coefficients is not None:
         coefficients = coefficients.compute()  # named point: (term x grid) reduction
         anomaly = field - anomalies.evaluate(basis, coefficients, field)
@@ -100,6 +102,7 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
         layout=layout,
         template=field,
         climatology=coefficients,
+        climatology_kind=kind,
         segment_start=data.segment_starts(time_axis),
         season_year=data.season_year(time_axis, d.months).values,
         summary=summary,

@@ -174,7 +174,7 @@ def model_dataset(cfg, prep, found) -> xr.Dataset:
         "variable": cfg.data.variable,
         "units": prep.template.attrs.get("units"),
         "lat": cfg.data.lat, "lon": cfg.data.lon, "level": cfg.data.level, "months": cfg.data.months,
-        "climatology": cfg.anomalies.climatology, "harmonics": cfg.anomalies.harmonics,
+        "climatology": prep.climatology_kind, "harmonics": cfg.anomalies.harmonics,
         "detrend": cfg.anomalies.detrend, "running_mean_days": cfg.anomalies.running_mean_days,
         "weighting": cfg.eof.weighting, "method": clusterer.method, "k": cfg.regimes.k,
         "names": regime_names(cfg),

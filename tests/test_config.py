@@ -42,7 +42,7 @@ def test_defaults_are_filled_for_every_key(tmp_path):
             if key not in ("paths", "variable", "dir"):
                 assert getattr(ns, key) == spec.default, f"{section}.{key}"
     # a few defaults spelled out, as documented in the schema docs
-    assert cfg.anomalies.climatology == "daily"
+    assert cfg.anomalies.climatology == "auto"
     assert cfg.regimes.k == 4
     assert cfg.eof.weighting == "coslat"
     assert cfg.data.variable == "psl"

@@ -186,3 +186,38 @@ dir = "out{chunk}"
         results.append(xr.open_dataset(pipeline.run(cfg, text) / "labels.nc"))
     np.testing.assert_array_equal(results[0]["label"].values, results[1]["label"].values)
     np.testing.assert_allclose(results[0]["probability"].values, results[1]["probability"].values, atol=1e-5)
+
+
+def test_monthly_data_get_a_calendar_month_climatology(tmp_path):
+    """With climatology = auto, monthly means are removed from monthly data (xarray groupby as the reference)."""
+    data, _ = synthetic.planted_regimes(years=30, lat=LAT[::2], lon=LON[::2], k=2, seed=5)
+    monthly = data.resample(time="MS").mean()
+    monthly["psl"].attrs = data["psl"].attrs
+    synthetic.write_netcdf(monthly, tmp_path / "monthly.nc")
+    cfg, text = write_config(
+        tmp_path,
+        """
+[data]
+paths = ["monthly.nc"]
+variable = "psl"
+[eof]
+modes = 3
+[regimes]
+k = 2
+restarts = 5
+[output]
+dir = "out"
+""",
+    )
+    out = pipeline.run(cfg, text)
+    model = RegimeModel.load(out / "model.nc")
+    assert model.settings["climatology"] == "monthly"
+    # each regime's anomaly composite equals the mean, over its months, of the field minus its
+    # calendar-month mean (xarray groupby is the reference)
+    comp = xr.open_dataset(out / "composites.nc")
+    labels = xr.open_dataset(out / "labels.nc")
+    reference = (monthly["psl"].groupby("time.month") - monthly["psl"].groupby("time.month").mean()).drop_vars("month")
+    for r in (1, 2):
+        days = labels["time"].where(labels["label"] == r, drop=True)
+        expected = reference.sel(time=days).mean("time")
+        np.testing.assert_allclose(comp["anomaly_composite"].sel(regime=r).values, expected.values, atol=0.05)
