@@ -67,7 +67,6 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
     field = data.standardise(data.pick_variable(ds, d.variable), ds, d.chunk_days)
     data.segment_starts(field["time"])  # refuses unsorted or duplicated time steps
     field = data.select(field, d.lat, d.lon, d.level, d.period)
-    field.attrs["input_files"] = ds.attrs["input_files"]
     field, keep = drop_missing(field, d.drop_incomplete_days)
     layout = Layout(field.isel(time=0, drop=True), keep)
 
@@ -87,6 +86,7 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
     if stacked.size * 4 < MEMORY_BUDGET_BYTES:
         stacked = stacked.persist()  # named point: the selected anomaly matrix fits in memory
     time_axis = anomaly["time"]
+    segment_start = data.segment_starts(time_axis)
     summary = {
         "files": ds.attrs["input_files"],
         "days": int(time_axis.size),
@@ -94,6 +94,7 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
         "last_day": str(time_axis.values[-1])[:10],
         "grid_points": int(keep.size),
         "points_used": int(keep.sum()),
+        "segments": int(segment_start.sum()),
     }
     return Prepared(
         anomaly=stacked,
@@ -103,7 +104,7 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
         template=field,
         climatology=coefficients,
         climatology_kind=kind,
-        segment_start=data.segment_starts(time_axis),
+        segment_start=segment_start,
         season_year=data.season_year(time_axis, d.months).values,
         summary=summary,
     )
@@ -198,8 +199,9 @@ def run(cfg: SimpleNamespace, config_text: str | None, output_dir: str | None = 
     with stage("reading and preparing the field"):
         prep = prepare(cfg)
     log.info(
-        "%d days from %s to %s, %d of %d grid points used",
-        prep.summary["days"], prep.summary["first_day"], prep.summary["last_day"], prep.summary["points_used"], prep.summary["grid_points"],
+        "%d days from %s to %s in %d runs of consecutive days; %d of %d grid points used",
+        prep.summary["days"], prep.summary["first_day"], prep.summary["last_day"], prep.summary["segments"],
+        prep.summary["points_used"], prep.summary["grid_points"],
     )
     found = analyse(cfg, prep)
     with stage(f"writing results to {folder}"):
