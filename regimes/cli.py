@@ -1,4 +1,4 @@
-"""Command line: ``regimes run CONFIG`` and ``regimes init``.
+"""Command line: ``regimes run CONFIG``, ``regimes scan CONFIG`` and ``regimes init``.
 
 User errors (:class:`~regimes.errors.UserError`) end with one line on
 standard error and exit status 2; anything else is a bug and keeps its
@@ -28,6 +28,42 @@ def _run(args) -> None:
     pipeline.run(cfg, text, output_dir=args.output, overwrite=args.overwrite, command=" ".join(["regimes", *sys.argv[1:]]))
 
 
+def _scan(args) -> None:
+    import numpy as np
+
+    from . import data, output, pipeline, scan
+    from .eof import EOF
+
+    ks = scan.parse_k_range(args.k)
+    if args.surrogates < 0:
+        raise UserError(f"--surrogates {args.surrogates}: expected a number >= 0")
+    if args.restarts < 2:
+        raise UserError(f"--restarts {args.restarts}: the classifiability needs at least 2 restarts")
+    if not 0 < args.confidence < 1:
+        raise UserError(f"--confidence {args.confidence}: expected a fraction strictly between 0 and 1, e.g. 0.9")
+    cfg, text = config.load(args.config)
+    folder = output.check_folder(args.output or str(Path(cfg.output.dir) / "scan"), args.overwrite, data.expand_paths(cfg.data.paths))
+    with pipeline.stage("reading and preparing the field"):
+        prep = pipeline.prepare(cfg)
+    e, r = cfg.eof, cfg.regimes
+    rng = np.random.default_rng(r.seed)  # the same generator and EOF seed as pipeline.analyse
+    with pipeline.stage("EOF analysis"):
+        eof = EOF(e.modes, e.variance_fraction, e.solver, seed=int(rng.integers(2**31 - 1))).fit(prep.anomaly, prep.weights)
+        pcs = eof.transform(prep.anomaly).compute()
+    with pipeline.stage(f"scan of k = {ks[0]}..{ks[-1]} ({args.restarts} restarts, {args.surrogates} surrogates)"):
+        table = scan.scan(
+            pcs, prep.segment_start, prep.season_year, ks, rng,
+            restarts=args.restarts, surrogates=args.surrogates, confidence=args.confidence, max_iterations=r.max_iterations,
+        )
+    command = " ".join(["regimes", *sys.argv[1:]])
+    table.attrs.update(output.provenance(command, text, prep.summary["files"]))
+    table.attrs["title"] = "number-of-regimes scan"
+    output.write(output.coordinate_attrs(table), folder / "scan.nc")
+    print(scan.table(table))
+    print(table.attrs["recommendation"])
+    print(f"wrote {folder / 'scan.nc'}")
+
+
 def _init(args) -> None:
     path = Path(args.path)
     if path.exists() and not args.overwrite:
@@ -45,6 +81,15 @@ def parser() -> argparse.ArgumentParser:
     run.add_argument("--output", help="output folder (overrides output.dir)")
     run.add_argument("--overwrite", action="store_true", help="allow writing into an existing output folder")
     run.set_defaults(func=_run)
+    sc = sub.add_parser("scan", help="scan the number of regimes: classifiability, red-noise significance, stability")
+    sc.add_argument("config", help="TOML config file")
+    sc.add_argument("--k", default="2-8", help="range of k, e.g. 2-8 or 2,3,5 (default 2-8)")
+    sc.add_argument("--surrogates", type=int, default=100, help="red-noise surrogates (default 100)")
+    sc.add_argument("--restarts", type=int, default=50, help="k-means++ restarts per fit (default 50)")
+    sc.add_argument("--confidence", type=float, default=0.90, help="confidence level of the red-noise test (default 0.90)")
+    sc.add_argument("--output", help="output folder (default: output.dir/scan)")
+    sc.add_argument("--overwrite", action="store_true", help="allow writing into an existing output folder")
+    sc.set_defaults(func=_scan)
     init = sub.add_parser("init", help="write a starter config listing every key")
     init.add_argument("path", nargs="?", default="regimes.toml", help="file to write (default regimes.toml)")
     init.add_argument("--overwrite", action="store_true", help="replace an existing file")

@@ -33,6 +33,9 @@ log = logging.getLogger("regimes")
 MEMORY_BUDGET_BYTES = 2 * 1024**3
 """The selected anomaly matrix is held in memory when it is smaller than this."""
 
+BLOCK_BYTES = 128 * 1024**2
+"""Target size of one block of samples of the anomaly matrix (float32); few large blocks keep dask overhead low."""
+
 
 @dataclass
 class Prepared:
@@ -83,6 +86,7 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
         anomaly, _ = anomalies.detrend(anomaly)
     raw = field.sel(time=anomaly["time"])
     stacked = layout.stack(anomaly)
+    stacked = stacked.chunk({"sample": max(1, BLOCK_BYTES // (4 * stacked.sizes["feature"]))})
     if stacked.size * 4 < MEMORY_BUDGET_BYTES:
         stacked = stacked.persist()  # named point: the selected anomaly matrix fits in memory
     time_axis = anomaly["time"]
