@@ -52,30 +52,40 @@ def squared_distances(x: np.ndarray, centres: np.ndarray) -> np.ndarray:
 
 
 def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Generator) -> np.ndarray:
-    """k-means++ seeding (Arthur & Vassilvitskii 2007), all restarts at once.
+    """Greedy k-means++ seeding (Arthur & Vassilvitskii 2007), all restarts at once.
+
+    Each new centre is the best of ``2 + floor(ln k)`` candidates drawn with
+    probability proportional to the squared distance to the nearest chosen
+    centre: the one that most lowers the summed squared distances (the greedy
+    variant, as in scikit-learn), which avoids most poor local minima.
 
     Returns
     -------
     array (restarts, k, d) of initial centres picked among the rows of ``x``.
     """
     n = x.shape[0]
+    trials = 2 + int(np.log(k))
+    every = np.arange(restarts)
     chosen = np.empty((restarts, k), dtype=np.intp)
     chosen[:, 0] = rng.integers(n, size=restarts)
     closest = squared_distances(x, x[chosen[:, :1]])[:, :, 0]
     for j in range(1, k):
-        total = closest.sum(1, keepdims=True)
         cumulative = np.cumsum(closest, axis=1)
-        draw = rng.random((restarts, 1)) * total
-        pick = np.minimum((cumulative < draw).sum(1), n - 1)
-        degenerate = total[:, 0] <= 0
-        pick[degenerate] = rng.integers(n, size=int(degenerate.sum()))
-        chosen[:, j] = pick
-        closest = np.minimum(closest, squared_distances(x, x[pick][:, None, :])[:, :, 0])
+        draw = rng.random((restarts, trials)) * cumulative[:, -1:]
+        candidates = np.minimum((cumulative[:, None, :] < draw[:, :, None]).sum(2), n - 1)
+        reduced = np.minimum(closest[:, :, None], squared_distances(x, x[candidates]))
+        best = reduced.sum(1).argmin(1)
+        chosen[:, j] = candidates[every, best]
+        closest = reduced[every, :, best]
     return x[chosen]
 
 
 def batched_lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300, tol: float = 1e-10):
     """Lloyd iterations for many restarts at once.
+
+    Distances to the centres are float32 matrix products; centroid sums are
+    accumulated in float64. The final labels and inertia are recomputed in
+    float64.
 
     Parameters
     ----------
@@ -90,30 +100,36 @@ def batched_lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300,
     inertia : array (r,)
         Within-cluster sum of squared distances of each restart.
     """
-    r, k, _ = centres.shape
+    r, k, d = centres.shape
+    n = x.shape[0]
+    x32 = np.ascontiguousarray(x, dtype=np.float32)
+    norms = (x**2).sum(1)
+    threshold = tol * max(1.0, float(norms.sum()))
     centres = centres.copy()
     active = np.ones(r, dtype=bool)
-    labels = np.zeros((r, x.shape[0]), dtype=np.intp)
+    labels = np.zeros((r, n), dtype=np.intp)
     for _ in range(max_iterations):
-        d2 = squared_distances(x, centres[active])
-        new = d2.argmin(2)
-        onehot = (new[:, :, None] == np.arange(k)[None, None, :]).astype(np.float64)
-        counts = onehot.sum(1)
-        sums = np.einsum("rnk,nd->rkd", onehot, x, optimize=True)
-        old = centres[active]
+        index = np.flatnonzero(active)
+        old = centres[index]
+        # |x|^2 is the same for every centre, so it is left out of the argmin
+        d2 = (old**2).sum(2).astype(np.float32)[:, :, None] - 2 * np.matmul(old.astype(np.float32), x32.T)
+        new = d2.argmin(1)
+        flat = (new + k * np.arange(index.size)[:, None]).ravel()
+        counts = np.bincount(flat, minlength=index.size * k).reshape(index.size, k)
+        sums = np.stack(
+            [np.bincount(flat, weights=np.tile(x[:, j], index.size), minlength=index.size * k) for j in range(d)], axis=-1
+        ).reshape(index.size, k, d)
         updated = np.where(counts[:, :, None] > 0, sums / np.maximum(counts, 1)[:, :, None], old)
         empty = counts == 0
         if empty.any():
-            far = d2.min(2).argmax(1)
+            far = (d2.min(1) + norms).argmax(1)
             rows, cols = np.nonzero(empty)
             updated[rows, cols] = x[far[rows]]
         shift = ((updated - old) ** 2).sum((1, 2))
-        unchanged = (new == labels[active]).all(1)
-        index = np.flatnonzero(active)
+        unchanged = (new == labels[index]).all(1)
         centres[index] = updated
         labels[index] = new
-        done = unchanged | (shift <= tol * max(1.0, float((x**2).sum())))
-        active[index[done]] = False
+        active[index[unchanged | (shift <= threshold)]] = False
         if not active.any():
             break
     d2 = squared_distances(x, centres)

@@ -1,0 +1,176 @@
+"""Wall time and peak memory of the classifiability + red-noise scan: batched k-means against scikit-learn.
+
+Both sides compute, for k = 2..8, the classifiability index over R restarts
+(Michelangeli, Vautard & Legras 1995) of the observed PCs and of S red-noise
+surrogates (the same surrogates: independent AR(1) per PC, restarted at each
+season start; :func:`regimes.scan.ar1_surrogates`). They differ only in the
+clustering:
+
+ours
+    :func:`regimes.scan.surrogate_classifiability` / :func:`regimes.scan.restart_fits`:
+    all R k-means++ restarts at once (regimes.cluster), surrogates over a
+    thread pool;
+sklearn
+    ``sklearn.cluster.KMeans(n_clusters=k, n_init=1, random_state=...)`` in a
+    Python loop over the R restarts, surrogates one after the other (its own
+    OpenMP threads run inside each fit).
+
+The PCs are those of the 40-year benchmark grid of ``pipeline_vs_plain.py``
+(planted regimes, 61 x 101 points, DJF, daily climatology of 3 harmonics,
+coslat weights, 10 modes, seed 1), built once through ``pipeline.prepare``
+and the EOF fit, cached in ``--workdir``. Each side runs in a fresh
+subprocess; peak memory is the child's maximum resident set size.
+
+Usage::
+
+    .venv/bin/python benchmarks/scan_vs_sklearn.py [--surrogates 100] [--restarts 50] [--workdir /tmp/regimes-scan-bench]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+KS = list(range(2, 9))
+
+CONFIG = """\
+[data]
+paths = ["{path}"]
+variable = "psl"
+lat = [20.0, 80.0]
+lon = [-60.0, 40.0]
+months = [12, 1, 2]
+[anomalies]
+climatology = "daily"
+harmonics = 3
+[eof]
+weighting = "coslat"
+modes = 10
+[regimes]
+seed = 1
+[output]
+dir = "out"
+"""
+
+
+def build_pcs(workdir: Path, years: int) -> Path:
+    """PCs of the benchmark grid (cached): the field via pipeline_vs_plain.build_inputs, then prepare + EOF."""
+    target = workdir / f"pcs_{years}y.npz"
+    if target.is_file():
+        return target
+    sys.path.insert(0, str(HERE))
+    from pipeline_vs_plain import build_inputs
+
+    from regimes import config, pipeline
+    from regimes.eof import EOF
+
+    data_path, _ = build_inputs(workdir, years, 0)
+    job = workdir / "scan_bench.toml"
+    job.write_text(CONFIG.format(path=data_path))
+    cfg, _ = config.load(job)
+    prep = pipeline.prepare(cfg)
+    rng = np.random.default_rng(cfg.regimes.seed)
+    eof = EOF(cfg.eof.modes, cfg.eof.variance_fraction, cfg.eof.solver, seed=int(rng.integers(2**31 - 1))).fit(prep.anomaly, prep.weights)
+    pcs = eof.transform(prep.anomaly).compute()
+    np.savez(target, pcs=pcs.values, segment_start=prep.segment_start, season_year=prep.season_year)
+    return target
+
+
+def side_ours(x, start, restarts, surrogates, workers):
+    from regimes import scan
+
+    rng = np.random.default_rng(1)
+    observed = [scan.classifiability(scan.restart_fits(x, k, restarts, rng)[0]) for k in KS]
+    noise = scan.surrogate_classifiability(x, start, KS, restarts, surrogates, rng, workers=workers)
+    return observed, noise
+
+
+def side_sklearn(x, start, restarts, surrogates, workers):
+    from sklearn.cluster import KMeans
+
+    from regimes import scan
+
+    rng = np.random.default_rng(1)
+
+    def index(data, k, seed0):
+        centres = np.stack([KMeans(n_clusters=k, n_init=1, random_state=seed0 + r).fit(data).cluster_centers_ for r in range(restarts)])
+        return scan.classifiability(centres)
+
+    observed = [index(x, k, 0) for k in KS]
+    params = scan.ar1_parameters(x, start)
+    seeds = np.random.SeedSequence(int(rng.integers(2**63))).spawn(surrogates)
+    noise = []
+    for s, seed in enumerate(seeds):
+        sur = scan.ar1_surrogates(*params, start, np.random.default_rng(seed))
+        noise.append([index(sur, k, 1000 * (s + 1)) for k in KS])
+    return observed, np.array(noise)
+
+
+def child(args) -> int:
+    z = np.load(args.pcs)
+    x, start = z["pcs"].astype(np.float64), z["segment_start"]
+    t = time.perf_counter()
+    fn = side_ours if args.child == "ours" else side_sklearn
+    observed, noise = fn(x, start, args.restarts, args.surrogates, args.workers)
+    wall = time.perf_counter() - t
+    q = np.quantile(noise, 0.9, axis=0)
+    print(json.dumps({"wall": wall, "observed": list(map(float, observed)), "q90": list(map(float, q))}))
+    return 0
+
+
+def measure(cmd):
+    started = time.perf_counter()
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, text=True)
+    out = proc.stdout.read()
+    _, status, usage = os.wait4(proc.pid, 0)
+    wall = time.perf_counter() - started
+    if status != 0:
+        raise SystemExit(f"child failed: {' '.join(cmd)}")
+    return wall, usage.ru_maxrss / 1024, json.loads(out.strip().splitlines()[-1])
+
+
+def main(argv=None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--years", type=int, default=40)
+    p.add_argument("--surrogates", type=int, default=100)
+    p.add_argument("--restarts", type=int, default=50)
+    p.add_argument("--workers", type=int, default=os.cpu_count())
+    p.add_argument("--workdir", default="/tmp/regimes-scan-bench")
+    p.add_argument("--only", choices=["ours", "sklearn"], help="run one side only")
+    p.add_argument("--child", choices=["ours", "sklearn"], help=argparse.SUPPRESS)
+    p.add_argument("--pcs", help=argparse.SUPPRESS)
+    args = p.parse_args(argv)
+    if args.child:
+        return child(args)
+    workdir = Path(args.workdir)
+    workdir.mkdir(parents=True, exist_ok=True)
+    pcs = build_pcs(workdir, args.years)
+    n = np.load(pcs)["pcs"].shape
+    print(f"PCs {n[0]} days x {n[1]} modes; k = {KS[0]}..{KS[-1]}; {args.surrogates} surrogates x {args.restarts} restarts; "
+          f"{os.cpu_count()} cores, {args.workers} worker threads (ours)")
+    results = {}
+    for side in ([args.only] if args.only else ["ours", "sklearn"]):
+        cmd = [sys.executable, __file__, "--child", side, "--pcs", str(pcs), "--restarts", str(args.restarts),
+               "--surrogates", str(args.surrogates), "--workers", str(args.workers)]
+        results[side] = measure(cmd)
+        wall, rss, res = results[side]
+        print(f"{side:8s} wall {wall:8.1f} s (scan itself {res['wall']:.1f} s)  peak RSS {rss:7.0f} MiB")
+        print(f"         classifiability {' '.join(f'{v:.3f}' for v in res['observed'])}")
+        print(f"         surrogate q90   {' '.join(f'{v:.3f}' for v in res['q90'])}")
+    if len(results) == 2:
+        ratio = results["sklearn"][0] / results["ours"][0]
+        print(f"speed-up sklearn / ours: {ratio:.2f}x (target >= 10x); ours {results['ours'][0]:.1f} s (target < 60 s)")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
