@@ -10,9 +10,6 @@ from __future__ import annotations
 
 import numpy as np
 import xarray as xr
-from scipy.special import logsumexp
-from scipy.stats import multivariate_normal
-from sklearn.mixture import GaussianMixture
 
 from .errors import UserError
 
@@ -231,6 +228,8 @@ class GaussianMixtureRegimes:
 
     def fit(self, pcs: xr.DataArray) -> "GaussianMixtureRegimes":
         """Fit on PCs with dims ``(sample, mode)``."""
+        from sklearn.mixture import GaussianMixture  # imported here: it costs every k-means job ~0.5 s of start-up
+
         x = _as_matrix(pcs)
         _check_enough(x.shape[0], self.k)
         gm = GaussianMixture(
@@ -258,6 +257,9 @@ class GaussianMixtureRegimes:
 
         Posterior ``w_j N(x; mu_j, S_j) / sum_i w_i N(x; mu_i, S_i)``, computed in log space.
         """
+        from scipy.special import logsumexp
+        from scipy.stats import multivariate_normal
+
         x = _as_matrix(pcs)
         log_density = np.stack(
             [

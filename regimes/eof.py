@@ -21,6 +21,7 @@ from __future__ import annotations
 import dask
 import dask.array as dsa
 import numpy as np
+import scipy.linalg
 import xarray as xr
 
 from .errors import UserError
@@ -92,7 +93,7 @@ class EOF:
         limit = min(n, p) if self.variance_fraction else min(self.modes, n, p)
         self.solver_ = self.solver if self.solver != "auto" else ("exact" if min(n, p) <= EXACT_LIMIT else "randomized")
         if self.solver_ == "exact":
-            values, vectors = self._exact(centred, n, p)
+            values, vectors = self._exact(centred, n, p, limit)
         else:
             values, vectors = self._randomized(centred, min(limit, 200), n)
         keep = min(self.modes, values.size)
@@ -117,18 +118,17 @@ class EOF:
         return self
 
     @staticmethod
-    def _exact(centred: dsa.Array, n: int, p: int) -> tuple[np.ndarray, np.ndarray]:
+    def _exact(centred: dsa.Array, n: int, p: int, limit: int) -> tuple[np.ndarray, np.ndarray]:
+        """The leading ``limit`` eigenpairs of the smaller cross-product matrix (scipy.linalg.eigh)."""
+        small = centred.T @ centred if p <= n else centred @ centred.T
+        matrix = dask.compute(small)[0] / (n - 1)
+        m = matrix.shape[0]
+        values, vectors = scipy.linalg.eigh(matrix, subset_by_index=[m - limit, m - 1])
+        values, vectors = np.clip(values[::-1], 0, None), vectors[:, ::-1]
         if p <= n:
-            cov = dask.compute(centred.T @ centred)[0] / (n - 1)
-            values, vectors = np.linalg.eigh(cov)
-            order = np.argsort(values)[::-1]
-            return np.clip(values[order], 0, None), vectors[:, order].T
-        gram = dask.compute(centred @ centred.T)[0] / (n - 1)
-        values, u = np.linalg.eigh(gram)
-        order = np.argsort(values)[::-1]
-        values, u = np.clip(values[order], 0, None), u[:, order]
+            return values, vectors.T
         positive = values > values[0] * 1e-12
-        values, u = values[positive], u[:, positive]
+        values, u = values[positive], vectors[:, positive]
         vectors = dask.compute(centred.T @ u)[0] / np.sqrt(values * (n - 1))[None, :]
         return values, vectors.T
 

@@ -34,7 +34,8 @@ MEMORY_BUDGET_BYTES = 2 * 1024**3
 """The selected anomaly matrix is held in memory when it is smaller than this."""
 
 BLOCK_BYTES = 128 * 1024**2
-"""Target size of one block of samples of the anomaly matrix (float32); few large blocks keep dask overhead low."""
+"""Largest block of samples of the anomaly matrix (float32); there are at least four blocks so both cores work.
+Few large blocks keep dask's overhead low."""
 
 
 @dataclass
@@ -55,10 +56,11 @@ class Prepared:
 
 @contextlib.contextmanager
 def stage(name: str):
-    """Log a stage's start and its wall time; show a progress bar for dask work over 2 s."""
+    """Log a stage's start and its wall time; on a terminal, show a progress bar for dask work over 2 s."""
     log.info("%s ...", name)
     started = time.perf_counter()
-    with ProgressBar(minimum=2.0, dt=0.5, out=sys.stderr):
+    show = sys.stderr.isatty() and log.isEnabledFor(logging.INFO)
+    with ProgressBar(minimum=2.0, dt=0.1, out=sys.stderr) if show else contextlib.nullcontext():
         yield
     log.info("%s done in %.1f s", name, time.perf_counter() - started)
 
@@ -86,7 +88,8 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
         anomaly, _ = anomalies.detrend(anomaly)
     raw = field.sel(time=anomaly["time"])
     stacked = layout.stack(anomaly)
-    stacked = stacked.chunk({"sample": max(1, BLOCK_BYTES // (4 * stacked.sizes["feature"]))})
+    rows = min(BLOCK_BYTES // (4 * stacked.sizes["feature"]), -(-stacked.sizes["sample"] // 4))
+    stacked = stacked.chunk({"sample": max(1, rows)})
     if stacked.size * 4 < MEMORY_BUDGET_BYTES:
         stacked = stacked.persist()  # named point: the selected anomaly matrix fits in memory
     time_axis = anomaly["time"]
