@@ -72,13 +72,17 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
     field = data.standardise(data.pick_variable(ds, d.variable), ds, d.chunk_days)
     data.segment_starts(field["time"])  # refuses unsorted or duplicated time steps
     field = data.select(field, d.lat, d.lon, d.level, d.period)
-    field, keep = drop_missing(field, d.drop_incomplete_days)
-    layout = Layout(field.isel(time=0, drop=True), keep)
-
     kind = data.time_step_kind(field["time"]) if a.climatology == "auto" else a.climatology
     basis, coefficients = anomalies.climatology_coefficients(field, kind, a.harmonics, a.base_period)
+    # named point: the missing-value census and the climatology fit share one read of the field
+    census, coefficients = dask.compute(missing_census(field), coefficients)
+    complete, keep = check_missing(field, census, d.drop_incomplete_days)
+    if complete.size < field.sizes["time"]:
+        field = field.isel(time=complete)
+        basis, coefficients = anomalies.climatology_coefficients(field, kind, a.harmonics, a.base_period)
+        coefficients = coefficients.compute() if coefficients is not None else None  # named point: refit without the dropped days
+    layout = Layout(field.isel(time=0, drop=True), keep)
     if coefficients is not None:
-        coefficients = coefficients.compute()  # named point: (term x grid) reduction
         anomaly = field - anomalies.evaluate(basis, coefficients, field)
     else:
         anomaly = field
@@ -86,12 +90,11 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
     anomaly = data.select_months(anomaly, d.months)
     if a.detrend:
         anomaly, _ = anomalies.detrend(anomaly)
-    raw = field.sel(time=anomaly["time"])
-    stacked = layout.stack(anomaly)
-    rows = min(BLOCK_BYTES // (4 * stacked.sizes["feature"]), -(-stacked.sizes["sample"] // 4))
-    stacked = stacked.chunk({"sample": max(1, rows)})
-    if stacked.size * 4 < MEMORY_BUDGET_BYTES:
-        stacked = stacked.persist()  # named point: the selected anomaly matrix fits in memory
+    stacked, raw = layout.stack(anomaly), layout.stack(field.sel(time=anomaly["time"]))
+    rows = max(1, min(BLOCK_BYTES // (4 * stacked.sizes["feature"]), -(-stacked.sizes["sample"] // 4)))
+    stacked, raw = stacked.chunk({"sample": rows}), raw.chunk({"sample": rows})
+    if 2 * stacked.size * 4 < MEMORY_BUDGET_BYTES:
+        stacked, raw = dask.persist(stacked, raw)  # named point: the selected anomalies and field fit in memory (one read)
     time_axis = anomaly["time"]
     segment_start = data.segment_starts(time_axis)
     summary = {
@@ -105,7 +108,7 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
     }
     return Prepared(
         anomaly=stacked,
-        raw=layout.stack(raw),
+        raw=raw,
         weights=layout.flatten(area_weights(field, cfg.eof.weighting)),
         layout=layout,
         template=field,
@@ -117,11 +120,26 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
     )
 
 
-def drop_missing(field: xr.DataArray, drop_days: bool) -> tuple[xr.DataArray, np.ndarray]:
-    """Find grid points missing at every time (left out) and days with other gaps.
+def missing_census(field: xr.DataArray) -> tuple[xr.DataArray, xr.DataArray]:
+    """Number of missing values at each grid point and on each day (lazy)."""
+    missing = field.isnull()
+    return missing.sum("time"), missing.sum([d for d in field.dims if d != "time"])
 
-    Returns the field (without incomplete days when ``drop_days``) and the
-    flat boolean mask of points kept.
+
+def check_missing(field: xr.DataArray, census, drop_days: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Grid points missing at every time are left out; other gaps are an error or drop their days.
+
+    Parameters
+    ----------
+    census : (per_point, per_day)
+        Computed :func:`missing_census` of ``field``.
+
+    Returns
+    -------
+    complete : numpy.ndarray of int
+        Indices of the days kept.
+    keep : numpy.ndarray of bool
+        Flat mask of the grid points kept.
 
     Raises
     ------
@@ -129,8 +147,7 @@ def drop_missing(field: xr.DataArray, drop_days: bool) -> tuple[xr.DataArray, np
         If every point is missing, or some days miss values at points that are
         present on other days and ``drop_days`` is false.
     """
-    missing = field.isnull()
-    per_point, per_day = dask.compute(missing.sum("time"), missing.sum([d for d in field.dims if d != "time"]))  # named point
+    per_point, per_day = census
     n_time = field.sizes["time"]
     always = per_point.values == n_time
     if always.all():
@@ -144,10 +161,9 @@ def drop_missing(field: xr.DataArray, drop_days: bool) -> tuple[xr.DataArray, np
                 "at points present on other days; set data.drop_incomplete_days = true to leave those days out"
             )
         log.warning("leaving out %d day(s) with missing values, first %s", bad.size, str(field["time"].values[bad[0]])[:10])
-        field = field.isel(time=np.flatnonzero(extra == 0))
     if always.any():
         log.info("%d grid point(s) missing at every time are left out", int(always.sum()))
-    return field, ~always.ravel()
+    return np.flatnonzero(extra == 0), ~always.ravel()
 
 
 def analyse(cfg: SimpleNamespace, prep: Prepared) -> dict:
