@@ -17,9 +17,6 @@ from . import stats
 from .model import RegimeModel
 from .output import coordinate_attrs, flag_meanings
 
-FILES = ("labels.nc", "composites.nc", "statistics.nc", "eofs.nc", "model.nc")
-
-
 def regime_names(cfg: SimpleNamespace) -> list[str]:
     """Names from the config, else ``regime_1 .. regime_k``."""
     return cfg.regimes.names or [f"regime_{i}" for i in range(1, cfg.regimes.k + 1)]

@@ -70,8 +70,3 @@ class Layout:
     def mask(self) -> xr.DataArray:
         """1 where a grid point takes part in the analysis, 0 where it was left out."""
         return xr.DataArray(self.keep.reshape(self.shape).astype("int8"), dims=self.feature_dims, coords=self.coords)
-
-    @classmethod
-    def from_mask(cls, mask: xr.DataArray, sample_dim: str = "time") -> "Layout":
-        """Rebuild a layout from :meth:`mask` (e.g. read back from a saved model)."""
-        return cls(mask, mask.values.astype(bool), sample_dim)
