@@ -52,20 +52,30 @@ def expand_paths(patterns: list[str]) -> list[str]:
     return list(dict.fromkeys(str(Path(f).resolve()) for f in files))
 
 
-def _open_one(path: str) -> xr.Dataset:
+def _open_one(path: str, chunk_days: int) -> xr.Dataset:
+    """Open one file lazily, in dask chunks of ``chunk_days`` time steps.
+
+    The chunks are cut from the file's lazy arrays, so each chunk reads only
+    its own slice, whatever the file's own chunking (a contiguous variable
+    would otherwise be one chunk: the whole field at once).
+    """
     try:
-        return xr.open_dataset(path, engine="netcdf4", chunks={}, decode_times=xr.coders.CFDatetimeCoder(use_cftime=None))
+        ds = xr.open_dataset(path, engine="netcdf4", chunks=None, decode_times=xr.coders.CFDatetimeCoder(use_cftime=None))
     except (OSError, ValueError, RuntimeError, KeyError, IndexError, TypeError) as err:
         raise UserError(f"input file '{path}' cannot be read as NetCDF ({err}); check the file") from None
+    time_dims = {name for name in ds.dims if name in ds.coords and _is_time(ds[name])}
+    return ds.chunk({name: (chunk_days if name in time_dims else -1) for name in ds.dims})
 
 
-def open_inputs(patterns: list[str]) -> xr.Dataset:
+def open_inputs(patterns: list[str], chunk_days: int = 365) -> xr.Dataset:
     """Open one or several NetCDF files lazily as one dataset.
 
     Parameters
     ----------
     patterns : list of str
         File names or glob patterns (absolute, or relative to the working folder).
+    chunk_days : int
+        Time steps per dask chunk.
 
     Returns
     -------
@@ -74,7 +84,7 @@ def open_inputs(patterns: list[str]) -> xr.Dataset:
         ``ds.attrs["input_files"]`` lists the files read.
     """
     files = expand_paths(patterns)
-    parts = [_open_one(f) for f in files]
+    parts = [_open_one(f, chunk_days) for f in files]
     if len(parts) == 1:
         ds = parts[0]
     else:

@@ -5,10 +5,10 @@ Two solvers:
 * ``exact``: the small cross-product matrix (feature x feature covariance, or
   sample x sample Gram matrix, whichever is smaller) is accumulated in float64
   over chunks and fully eigen-decomposed (``numpy.linalg.eigh``).
-* ``randomized``: the randomized range finder with power iterations of Halko,
-  Martinsson & Tropp (2011, SIAM Review 53, 217-288), streamed over the
-  sample chunks by ``dask.array.linalg.svd_compressed``; memory is a few
-  multiples of (sample x modes) and (modes x feature).
+* ``randomized``: randomized subspace iteration of Halko, Martinsson & Tropp
+  (2011, SIAM Review 53, 217-288), streamed over the sample chunks of the
+  stored field; memory is a few multiples of (sample x modes) and
+  (modes x feature).
 
 EOFs of the area-weighted field are the eigenvectors of its covariance
 (Hannachi, Jolliffe & Stephenson 2007, Int. J. Climatol. 27, 1119-1152).
@@ -84,18 +84,18 @@ class EOF:
             raise UserError(f"only {n} sample(s) selected; an EOF analysis needs at least 2; widen the period or season")
         self.weights_ = weights
         w = weights.values
-        x = dsa.asarray(field.data).astype(np.float64)
+        stored = dsa.asarray(field.data)
+        x = stored.astype(np.float64)
         mean, squares = dask.compute(x.mean(axis=0), (x**2).sum(axis=0))
         total_variance = float((w**2 * (squares - n * mean**2)).sum() / (n - 1))
         if not total_variance > 0:
             raise UserError("the selected field does not vary in time (zero variance); check the variable, box and period")
-        centred = (x - mean[None, :]) * w[None, :]
         limit = min(n, p) if self.variance_fraction else min(self.modes, n, p)
         self.solver_ = self.solver if self.solver != "auto" else ("exact" if min(n, p) <= EXACT_LIMIT else "randomized")
         if self.solver_ == "exact":
-            values, vectors = self._exact(centred, n, p, limit)
+            values, vectors = self._exact((x - mean[None, :]) * w[None, :], n, p, limit)
         else:
-            values, vectors = self._randomized(centred, min(limit, 200), n)
+            values, vectors = self._randomized(stored, mean, w, min(limit, 200))
         keep = min(self.modes, values.size)
         fraction = values / total_variance
         if self.variance_fraction:
@@ -132,19 +132,37 @@ class EOF:
         vectors = dask.compute(centred.T @ u)[0] / np.sqrt(values * (n - 1))[None, :]
         return values, vectors.T
 
-    def _randomized(self, centred: dsa.Array, k: int, n: int) -> tuple[np.ndarray, np.ndarray]:
-        centred = centred.rechunk({1: -1})
-        k = min(k, min(centred.shape) - 1) if min(centred.shape) > 1 else 1
-        _, s, vt = dsa.linalg.svd_compressed(
-            centred,
-            k,
-            n_power_iter=RANDOMIZED_POWER_ITERATIONS,
-            n_oversamples=RANDOMIZED_OVERSAMPLING,
-            seed=self.seed,
-            compute=False,
-        )
-        s, vt = dask.compute(s, vt)
-        return s**2 / (n - 1), vt
+    def _randomized(self, x: dsa.Array, mean: np.ndarray, w: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+        """Leading ``k`` eigenpairs by randomized subspace iteration on the weighted, centred field.
+
+        Algorithms 4.4 (subspace iteration) and 5.1 (direct SVD) of Halko,
+        Martinsson & Tropp (2011). The centring and weighting are folded into
+        the products, ``Xc B = x (W B) - 1 (m^T W B)`` and
+        ``Xc^T Q = W (x^T Q) - W m (1^T Q)``, so each pass streams the stored
+        field ``x`` once and no centred copy of it is ever held. The
+        iterations only shape the subspace and run in the field's precision;
+        the final projection, which gives the singular values, runs in float64.
+        """
+        n, p = x.shape
+        k = min(k, min(n, p) - 1) if min(n, p) > 1 else 1
+        width = min(k + RANDOMIZED_OVERSAMPLING, n, p)
+        rng = np.random.default_rng(self.seed)
+        low = np.float32 if x.dtype == np.float32 else np.float64
+
+        def times(b: np.ndarray) -> np.ndarray:  # Xc @ b, (n, width)
+            wb = w[:, None] * b
+            return dask.compute(x @ wb.astype(low))[0] - (mean @ wb)[None, :]
+
+        def transposed_times(q: np.ndarray, dtype=low) -> np.ndarray:  # Xc^T @ q, (p, width)
+            xq = dask.compute(x.T @ q.astype(dtype))[0].astype(np.float64)
+            return w[:, None] * (xq - mean[:, None] * q.sum(axis=0)[None, :])
+
+        q, _ = np.linalg.qr(times(rng.standard_normal((p, width))))
+        for _ in range(RANDOMIZED_POWER_ITERATIONS):
+            z, _ = np.linalg.qr(transposed_times(q))
+            q, _ = np.linalg.qr(times(z))
+        _, s, vt = np.linalg.svd(transposed_times(q, np.float64).T, full_matrices=False)  # B = Q^T Xc, (width, p)
+        return s[:k] ** 2 / (n - 1), vt[:k]
 
     def transform(self, field: xr.DataArray) -> xr.DataArray:
         """Principal components of ``field`` (dims ``sample``, ``feature``), lazy.

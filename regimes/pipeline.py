@@ -68,7 +68,7 @@ def stage(name: str):
 def prepare(cfg: SimpleNamespace) -> Prepared:
     """Read, select, find missing points, remove the climatology, cut the season, stack."""
     d, a = cfg.data, cfg.anomalies
-    ds = data.open_inputs(d.paths)
+    ds = data.open_inputs(d.paths, d.chunk_days)
     field = data.standardise(data.pick_variable(ds, d.variable), ds, d.chunk_days)
     data.segment_starts(field["time"])  # refuses unsorted or duplicated time steps
     field = data.select(field, d.lat, d.lon, d.level, d.period)
@@ -92,9 +92,9 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
         anomaly, _ = anomalies.detrend(anomaly)
     stacked, raw = layout.stack(anomaly), layout.stack(field.sel(time=anomaly["time"]))
     rows = max(1, min(BLOCK_BYTES // (4 * stacked.sizes["feature"]), -(-stacked.sizes["sample"] // 4)))
-    stacked, raw = stacked.chunk({"sample": rows}), raw.chunk({"sample": rows})
-    if 2 * stacked.size * 4 < MEMORY_BUDGET_BYTES:
-        stacked, raw = dask.persist(stacked, raw)  # named point: the selected anomalies and field fit in memory (one read)
+    stacked = stacked.chunk({"sample": rows})
+    if stacked.size * 4 < MEMORY_BUDGET_BYTES:
+        stacked = stacked.persist()  # named point: the selected anomalies fit in memory
     time_axis = anomaly["time"]
     segment_start = data.segment_starts(time_axis)
     summary = {
