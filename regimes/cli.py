@@ -31,34 +31,27 @@ def _run(args) -> None:
 def _scan(args) -> None:
     import numpy as np
 
-    from . import data, output, pipeline, scan
-    from .eof import EOF
+    from . import data, output, pipeline, results, scan
 
-    ks = scan.parse_k_range(args.k)
-    if args.surrogates < 0:
+    if args.surrogates is not None and args.surrogates < 0:
         raise UserError(f"--surrogates {args.surrogates}: expected a number >= 0")
-    if args.restarts < 2:
+    if args.restarts is not None and args.restarts < 2:
         raise UserError(f"--restarts {args.restarts}: the classifiability needs at least 2 restarts")
-    if not 0 < args.confidence < 1:
+    if args.confidence is not None and not 0 < args.confidence < 1:
         raise UserError(f"--confidence {args.confidence}: expected a fraction strictly between 0 and 1, e.g. 0.9")
+    ks = scan.parse_k_range(args.k) if args.k else None
     cfg, text = config.load(args.config)
+    for key in ("surrogates", "restarts", "confidence"):
+        if getattr(args, key) is not None:
+            setattr(cfg.scan, key, getattr(args, key))
     folder = output.check_folder(args.output or str(Path(cfg.output.dir) / "scan"), args.overwrite, data.expand_paths(cfg.data.paths))
     with pipeline.stage("reading and preparing the field"):
         prep = pipeline.prepare(cfg)
-    e, r = cfg.eof, cfg.regimes
-    rng = np.random.default_rng(r.seed)  # the same generator and EOF seed as pipeline.analyse
-    with pipeline.stage("EOF analysis"):
-        eof = EOF(e.modes, e.variance_fraction, e.solver, seed=int(rng.integers(2**31 - 1))).fit(prep.anomaly, prep.weights)
-        pcs = eof.transform(prep.anomaly).compute()
-    with pipeline.stage(f"scan of k = {ks[0]}..{ks[-1]} ({args.restarts} restarts, {args.surrogates} surrogates)"):
-        table = scan.scan(
-            pcs, prep.segment_start, prep.season_year, ks, rng,
-            restarts=args.restarts, surrogates=args.surrogates, confidence=args.confidence, max_iterations=r.max_iterations,
-        )
+    rng = np.random.default_rng(cfg.regimes.seed)  # the same generator and EOF seed as pipeline.analyse
+    _, pcs = pipeline.principal_components(cfg, prep, rng)
+    table = pipeline.scan_k(cfg, prep, pcs, rng, ks)
     command = " ".join(["regimes", *sys.argv[1:]])
-    table.attrs.update(output.provenance(command, text, prep.summary["files"]))
-    table.attrs["title"] = "number-of-regimes scan"
-    output.write(output.coordinate_attrs(table), folder / "scan.nc")
+    output.write(results.scan_file(table, output.provenance(command, text, prep.summary["files"])), folder / "scan.nc")
     print(scan.table(table))
     print(table.attrs["recommendation"])
     print(f"wrote {folder / 'scan.nc'}")
@@ -83,10 +76,10 @@ def parser() -> argparse.ArgumentParser:
     run.set_defaults(func=_run)
     sc = sub.add_parser("scan", help="scan the number of regimes: classifiability, red-noise significance, stability")
     sc.add_argument("config", help="TOML config file")
-    sc.add_argument("--k", default="2-8", help="range of k, e.g. 2-8 or 2,3,5 (default 2-8)")
-    sc.add_argument("--surrogates", type=int, default=100, help="red-noise surrogates (default 100)")
-    sc.add_argument("--restarts", type=int, default=50, help="k-means++ restarts per fit (default 50)")
-    sc.add_argument("--confidence", type=float, default=0.90, help="confidence level of the red-noise test (default 0.90)")
+    sc.add_argument("--k", help="k to try, e.g. 2-8 or 2,3,5 (default: scan.k_range of the config)")
+    sc.add_argument("--surrogates", type=int, help="red-noise surrogates (default: scan.surrogates)")
+    sc.add_argument("--restarts", type=int, help="k-means++ restarts per fit (default: scan.restarts)")
+    sc.add_argument("--confidence", type=float, help="confidence level of the red-noise test (default: scan.confidence)")
     sc.add_argument("--output", help="output folder (default: output.dir/scan)")
     sc.add_argument("--overwrite", action="store_true", help="allow writing into an existing output folder")
     sc.set_defaults(func=_scan)

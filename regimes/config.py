@@ -137,6 +137,32 @@ def _months(path, value):
     return list(value)
 
 
+def _k(path, value):
+    if value == "auto":
+        return value
+    try:
+        return _integer(1, 50)(path, value)
+    except UserError:
+        raise _fail(path, value, 'a whole number from 1 to 50, or "auto" (chosen by the [scan] rule)') from None
+
+
+def _k_range(path, value):
+    if (
+        not isinstance(value, list)
+        or len(value) != 2
+        or not all(isinstance(v, int) and not isinstance(v, bool) and 2 <= v <= 50 for v in value)
+        or value[0] > value[1]
+    ):
+        raise _fail(path, value, "two whole numbers from 2 to 50, the first not larger, e.g. [2, 8]")
+    return list(value)
+
+
+def _open_fraction(path, value):
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value < 1:
+        raise _fail(path, value, "a number strictly between 0 and 1, e.g. 0.9")
+    return float(value)
+
+
 def _names(path, value):
     if not isinstance(value, list) or not all(isinstance(v, str) and v.strip() for v in value):
         raise _fail(path, value, "a list of non-empty strings")
@@ -185,12 +211,18 @@ SCHEMA: dict[str, dict[str, Key]] = {
     },
     "regimes": {
         "method": Key("kmeans", _choice("kmeans", "gaussian-mixture"), "clustering method in PC space"),
-        "k": Key(4, _integer(1, 50), "number of regimes"),
+        "k": Key(4, _k, 'number of regimes, or "auto" to choose it with the rule of [scan]'),
         "restarts": Key(100, _integer(1), "number of seeded restarts; the best one is kept"),
         "seed": Key(1, _integer(0), "seed of the one random generator of the job"),
         "names": Key(None, _optional(_names), "names of the regimes 1..k (most frequent first)", ["first", "second", "third", "fourth"]),
         "min_duration_days": Key(0, _integer(0), "episodes shorter than this are not counted in duration statistics (0: all)"),
         "max_iterations": Key(300, _integer(1), "iteration limit of each restart"),
+    },
+    "scan": {
+        "k_range": Key([2, 8], _k_range, "smallest and largest k tried by 'regimes scan' and by regimes.k = \"auto\""),
+        "surrogates": Key(100, _integer(0), "red-noise (AR(1)) surrogates for the significance of the classifiability"),
+        "restarts": Key(50, _integer(2), "k-means++ restarts per fit in the scan (the classifiability compares them)"),
+        "confidence": Key(0.9, _open_fraction, "confidence level of the red-noise test"),
     },
     "output": {
         "dir": Key("out", _text, "output folder, relative to this config file"),
@@ -256,6 +288,8 @@ def validate(raw: dict, base_dir: Path | str = ".") -> SimpleNamespace:
 def _check_together(cfg: SimpleNamespace) -> None:
     """Rules that involve more than one key."""
     names = cfg.regimes.names
+    if names is not None and cfg.regimes.k == "auto":
+        raise UserError("config key 'regimes.names' is set but regimes.k = \"auto\"; give a fixed k with the names, or remove the names")
     if names is not None and len(names) != cfg.regimes.k:
         raise UserError(
             f"config key 'regimes.names' has {len(names)} names but regimes.k = {cfg.regimes.k}; give one name per regime"

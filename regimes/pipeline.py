@@ -21,7 +21,7 @@ import numpy as np
 import xarray as xr
 from dask.diagnostics import ProgressBar
 
-from . import anomalies, data, output, results, stats
+from . import anomalies, data, output, results, scan, stats
 from .cluster import make_clusterer
 from .eof import EOF
 from .errors import UserError
@@ -166,10 +166,9 @@ def check_missing(field: xr.DataArray, census, drop_days: bool) -> tuple[np.ndar
     return np.flatnonzero(extra == 0), ~always.ravel()
 
 
-def analyse(cfg: SimpleNamespace, prep: Prepared) -> dict:
-    """EOFs, clustering and statistics of prepared data."""
-    e, r = cfg.eof, cfg.regimes
-    rng = np.random.default_rng(r.seed)
+def principal_components(cfg: SimpleNamespace, prep: Prepared, rng: np.random.Generator) -> tuple[EOF, xr.DataArray]:
+    """Fit the EOFs (seeded from ``rng``) and compute the PCs of the prepared field."""
+    e = cfg.eof
     with stage("EOF analysis"):
         eof = EOF(e.modes, e.variance_fraction, e.solver, seed=int(rng.integers(2**31 - 1))).fit(prep.anomaly, prep.weights)
         pcs = eof.transform(prep.anomaly).compute()  # named point: (sample x mode) PCs
@@ -177,10 +176,39 @@ def analyse(cfg: SimpleNamespace, prep: Prepared) -> dict:
             "%s solver kept %d modes explaining %.1f %% of the variance",
             eof.solver_, eof.components_.sizes["mode"], 100 * float(eof.variance_fraction_.sum()),
         )
-    with stage(f"clustering ({r.method}, k = {r.k}, {r.restarts} restarts)"):
-        clusterer = make_clusterer(r.method, r.k, r.restarts, r.max_iterations, rng).fit(pcs)
+    return eof, pcs
+
+
+def scan_k(cfg: SimpleNamespace, prep: Prepared, pcs: xr.DataArray, rng: np.random.Generator, ks: list[int] | None = None) -> xr.Dataset:
+    """The number-of-regimes scan of :mod:`regimes.scan` with the settings of ``cfg.scan``.
+
+    ``ks`` defaults to every k in ``scan.k_range``.
+    """
+    s = cfg.scan
+    ks = ks or list(range(s.k_range[0], s.k_range[1] + 1))
+    with stage(f"scan of k = {ks[0]}..{ks[-1]} ({s.restarts} restarts, {s.surrogates} surrogates)"):
+        return scan.scan(
+            pcs, prep.segment_start, prep.season_year, ks, rng,
+            restarts=s.restarts, surrogates=s.surrogates, confidence=s.confidence, max_iterations=cfg.regimes.max_iterations,
+        )
+
+
+def analyse(cfg: SimpleNamespace, prep: Prepared) -> dict:
+    """EOFs, the choice of k when it is "auto", clustering and statistics of prepared data."""
+    r = cfg.regimes
+    rng = np.random.default_rng(r.seed)
+    eof, pcs = principal_components(cfg, prep, rng)
+    table, k = None, r.k
+    if k == "auto":
+        table = scan_k(cfg, prep, pcs, rng)
+        k = int(table.attrs["recommended_k"])
+        if k == 0:
+            raise UserError(f'regimes.k = "auto" found no k: {table.attrs["recommendation"]}; set regimes.k to a number')
+        log.info("%s", table.attrs["recommendation"])
+    with stage(f"clustering ({r.method}, k = {k}, {r.restarts} restarts)"):
+        clusterer = make_clusterer(r.method, k, r.restarts, r.max_iterations, rng).fit(pcs)
     labels = clusterer.labels_.values
-    states = np.arange(1, r.k + 1)
+    states = np.arange(1, k + 1)
     with stage("composites and statistics"):
         sums = dask.compute(  # named point: per-regime sums, one pass
             stats.composite_sums(prep.anomaly, labels, states), stats.composite_sums(prep.raw, labels, states)
@@ -195,7 +223,12 @@ def analyse(cfg: SimpleNamespace, prep: Prepared) -> dict:
             "transitions": stats.transitions(labels, prep.segment_start, states),
             "episodes": runs,
         }
-    return {"eof": eof, "pcs": pcs, "clusterer": clusterer, "sums": sums, "stats": summary}
+    return {"eof": eof, "pcs": pcs, "clusterer": clusterer, "sums": sums, "stats": summary, "k": k, "scan": table}
+
+
+def with_k(cfg: SimpleNamespace, k: int) -> SimpleNamespace:
+    """A copy of ``cfg`` with ``regimes.k`` set to ``k`` (the job as it ran, once "auto" is resolved)."""
+    return SimpleNamespace(**{**vars(cfg), "regimes": SimpleNamespace(**{**vars(cfg.regimes), "k": k})})
 
 
 def run(cfg: SimpleNamespace, config_text: str | None, output_dir: str | None = None, overwrite: bool = False, command: str = "regimes run") -> Path:
@@ -227,8 +260,11 @@ def run(cfg: SimpleNamespace, config_text: str | None, output_dir: str | None = 
         prep.summary["points_used"], prep.summary["grid_points"],
     )
     found = analyse(cfg, prep)
+    attrs = output.provenance(command, config_text, prep.summary["files"])
+    if found["scan"] is not None:
+        attrs["k_selection"] = found["scan"].attrs["recommendation"]
     with stage(f"writing results to {folder}"):
-        files = results.assemble(cfg, prep, found, output.provenance(command, config_text, prep.summary["files"]))
+        files = results.assemble(with_k(cfg, found["k"]), prep, found, attrs)
         output.write_all(files, folder, overwrite)
     log.info("finished in %.1f s; results in %s", time.perf_counter() - started, folder)
     return folder

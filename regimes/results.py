@@ -180,6 +180,14 @@ def model_dataset(cfg, prep, found) -> xr.Dataset:
     return ds
 
 
+def scan_file(table: xr.Dataset, attrs: dict) -> xr.Dataset:
+    """The number-of-regimes scan table (:func:`regimes.scan.scan`) with CF and provenance attributes."""
+    ds = coordinate_attrs(table)
+    ds.attrs.update(attrs)
+    ds.attrs["title"] = "regimes: number-of-regimes scan"
+    return ds
+
+
 def assemble(cfg, prep, found, attrs: dict) -> dict[str, xr.Dataset]:
     """All result datasets of a run, keyed by file name, with CF and provenance attributes."""
     builders = {
@@ -194,6 +202,8 @@ def assemble(cfg, prep, found, attrs: dict) -> dict[str, xr.Dataset]:
         ds.attrs.update(attrs)
         ds.attrs["title"] = f"regimes: {name[:-3]} of {cfg.data.variable}"
         files[name] = ds
+    if found.get("scan") is not None:
+        files["scan.nc"] = scan_file(found["scan"], attrs)
     model = RegimeModel(coordinate_attrs(model_dataset(cfg, prep, found)))
     files["model.nc"] = model.stamped({**attrs, "title": f"regimes: saved regime model of {cfg.data.variable}"})
     return files

@@ -109,6 +109,11 @@ def test_missing_required_key(tmp_path):
     [
         ("regimes", "k", 0),
         ("regimes", "k", True),
+        ("regimes", "k", "automatic"),
+        ("scan", "k_range", [5, 2]),
+        ("scan", "k_range", [1, 4]),
+        ("scan", "restarts", 1),
+        ("scan", "confidence", 1.0),
         ("data", "months", [13]),
         ("data", "months", [0]),
         ("data", "months", [1, 1]),
@@ -142,6 +147,12 @@ def test_names_length_must_equal_k(tmp_path):
     with pytest.raises(UserError) as err:
         config.validate(with_keys(regimes={"k": 3, "names": ["a", "b"]}), tmp_path)
     assert "regimes.names" in str(err.value)
+
+
+def test_k_auto_is_accepted_but_not_with_names(tmp_path):
+    assert config.validate(with_keys(regimes={"k": "auto"}), tmp_path).regimes.k == "auto"
+    with pytest.raises(UserError, match="regimes.names"):
+        config.validate(with_keys(regimes={"k": "auto", "names": ["a", "b"]}), tmp_path)
 
 
 def test_names_of_right_length_accepted(tmp_path):

@@ -195,3 +195,37 @@ def test_cli_scan_end_to_end_and_bad_k(planted, tmp_path):
         lines = bad.stderr.splitlines()
         assert len(lines) == 1 and lines[0].startswith("regimes: error:") and "--k" in lines[0], bad.stderr
     assert not (tmp_path / "other").exists()
+
+
+def test_run_with_k_auto_applies_the_scan_rule_and_records_it(planted, tmp_path):
+    raw = {
+        "data": {"paths": [str(planted["path"])], "variable": "psl", "months": [12, 1, 2]},
+        "eof": {"modes": 4},
+        "regimes": {"k": "auto", "seed": 3, "restarts": 10},
+        "scan": {"k_range": [2, 4], "surrogates": 9, "restarts": 6},
+        "output": {"dir": str(tmp_path / "auto")},
+    }
+    out = pipeline.run(config.validate(raw, tmp_path), "# the config text")
+    with xr.open_dataset(out / "scan.nc") as table, xr.open_dataset(out / "labels.nc") as labels:
+        # the planted number of regimes (planted truth), chosen by the same rule as 'regimes scan'
+        assert table.attrs["recommended_k"] == PLANTED_K
+        assert list(labels["label"].attrs["flag_values"]) == list(range(1, PLANTED_K + 1))
+        assert labels.attrs["k_selection"] == table.attrs["recommendation"]
+        assert "rule:" in labels.attrs["k_selection"]
+    with xr.open_dataset(out / "composites.nc") as comp:
+        assert comp.sizes["regime"] == PLANTED_K
+
+
+def test_k_auto_with_no_significant_k_is_refused_and_writes_nothing(tmp_path, monkeypatch):
+    pcs, start, years = red_noise_pcs(0)
+    table = scan.scan(pcs, start, years, [4], np.random.default_rng(0), restarts=4, surrogates=0, bootstrap=0,
+                      stability_restarts=2, mixtures=False)
+    assert table.attrs["recommended_k"] == 0  # with no surrogates nothing can be significant
+    monkeypatch.setattr(pipeline, "scan_k", lambda *args, **kw: table)
+    ds, _ = synthetic.planted_regimes(years=2, lat=LAT, lon=LON, k=2, seed=2)
+    synthetic.write_netcdf(ds, tmp_path / "psl.nc")
+    raw = {"data": {"paths": [str(tmp_path / "psl.nc")], "variable": "psl"}, "regimes": {"k": "auto"},
+           "output": {"dir": str(tmp_path / "out")}}
+    with pytest.raises(scan.UserError, match='regimes.k = "auto" found no k'):
+        pipeline.run(config.validate(raw, tmp_path), None)
+    assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())
