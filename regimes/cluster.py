@@ -48,6 +48,26 @@ def squared_distances(x: np.ndarray, centres: np.ndarray) -> np.ndarray:
     return np.maximum(d2, 0.0)
 
 
+def _float32_distances(x32: np.ndarray, centres: np.ndarray) -> np.ndarray:
+    """Squared distances (r, m, n) from centres (r, m, d) to the rows of ``x32`` (n, d), float32, clipped at 0."""
+    c = centres.astype(np.float32)
+    d2 = (x32**2).sum(1)[None, None, :] - 2 * np.matmul(c, x32.T) + (c**2).sum(2)[:, :, None]
+    return np.maximum(d2, 0.0, out=d2)
+
+
+def _nearest(d2: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Index (the first, on ties) and value of the smallest entry along axis 1 of ``d2`` (r, k, n).
+
+    Same result as ``argmin`` along axis 1, faster for small k: one
+    reduction, then one vectorised comparison per centre.
+    """
+    best = d2.min(axis=1)
+    index = np.full(best.shape, d2.shape[1] - 1, dtype=np.intp)
+    for j in range(d2.shape[1] - 2, -1, -1):
+        np.copyto(index, j, where=d2[:, j] == best)
+    return index, best
+
+
 def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Generator) -> np.ndarray:
     """Greedy k-means++ seeding (Arthur & Vassilvitskii 2007), all restarts at once.
 
@@ -55,25 +75,27 @@ def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Genera
     probability proportional to the squared distance to the nearest chosen
     centre: the one that most lowers the summed squared distances (the greedy
     variant, as in scikit-learn), which avoids most poor local minima.
+    Distances are float32; their sums float64.
 
     Returns
     -------
     array (restarts, k, d) of initial centres picked among the rows of ``x``.
     """
     n = x.shape[0]
+    x32 = np.ascontiguousarray(x, dtype=np.float32)
     trials = 2 + int(np.log(k))
     every = np.arange(restarts)
     chosen = np.empty((restarts, k), dtype=np.intp)
     chosen[:, 0] = rng.integers(n, size=restarts)
-    closest = squared_distances(x, x[chosen[:, :1]])[:, :, 0]
+    closest = _float32_distances(x32, x[chosen[:, :1]])[:, 0]
     for j in range(1, k):
-        cumulative = np.cumsum(closest, axis=1)
+        cumulative = np.cumsum(closest, axis=1, dtype=np.float64)
         draw = rng.random((restarts, trials)) * cumulative[:, -1:]
         candidates = np.minimum((cumulative[:, None, :] < draw[:, :, None]).sum(2), n - 1)
-        reduced = np.minimum(closest[:, :, None], squared_distances(x, x[candidates]))
-        best = reduced.sum(1).argmin(1)
+        reduced = np.minimum(closest[:, None, :], _float32_distances(x32, x[candidates]))
+        best = reduced.sum(2, dtype=np.float64).argmin(1)
         chosen[:, j] = candidates[every, best]
-        closest = reduced[every, :, best]
+        closest = reduced[every, best]
     return x[chosen]
 
 
@@ -82,7 +104,7 @@ def batched_lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300,
 
     Distances to the centres are float32 matrix products; centroid sums are
     accumulated in float64. The final labels and inertia are recomputed in
-    float64.
+    float64. Working memory is about ``restarts * n * (k * 4 + 8)`` bytes.
 
     Parameters
     ----------
@@ -107,19 +129,21 @@ def batched_lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300,
     labels = np.zeros((r, n), dtype=np.intp)
     for _ in range(max_iterations):
         index = np.flatnonzero(active)
+        m = index.size
         old = centres[index]
-        # |x|^2 is the same for every centre, so it is left out of the argmin
-        d2 = (old**2).sum(2).astype(np.float32)[:, :, None] - 2 * np.matmul(old.astype(np.float32), x32.T)
-        new = d2.argmin(1)
-        flat = (new + k * np.arange(index.size)[:, None]).ravel()
-        counts = np.bincount(flat, minlength=index.size * k).reshape(index.size, k)
-        sums = np.stack(
-            [np.bincount(flat, weights=np.tile(x[:, j], index.size), minlength=index.size * k) for j in range(d)], axis=-1
-        ).reshape(index.size, k, d)
+        # |x|^2 is the same for every centre, so it is left out of the nearest-centre search
+        d2 = np.matmul((-2 * old).astype(np.float32), x32.T)
+        d2 += (old**2).sum(2).astype(np.float32)[:, :, None]
+        new, nearest = _nearest(d2)
+        counts, sums = np.empty((m, k)), np.empty((m, k, d))
+        for j in range(k):  # float64 indicator products: exact float64 sums, at matrix-product speed
+            member = (new == j).astype(np.float64)
+            counts[:, j] = member.sum(1)
+            sums[:, j] = member @ x
         updated = np.where(counts[:, :, None] > 0, sums / np.maximum(counts, 1)[:, :, None], old)
         empty = counts == 0
         if empty.any():
-            far = (d2.min(1) + norms).argmax(1)
+            far = (nearest + norms).argmax(1)
             rows, cols = np.nonzero(empty)
             updated[rows, cols] = x[far[rows]]
         shift = ((updated - old) ** 2).sum((1, 2))

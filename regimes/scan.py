@@ -32,6 +32,7 @@ import numpy as np
 import xarray as xr
 from scipy.optimize import linear_sum_assignment
 from sklearn.metrics import silhouette_score
+from threadpoolctl import threadpool_limits
 
 from .cluster import GaussianMixtureRegimes, KMeansRegimes, batched_lloyd, kmeans_plus_plus
 from .errors import UserError
@@ -254,7 +255,8 @@ def surrogate_classifiability(
     if workers == 1 or surrogates <= 1:
         out = [run(s) for s in seeds]
     else:
-        with ThreadPoolExecutor(max_workers=workers) as pool:
+        # one BLAS thread per worker: the workers already fill the cores, and nested threads oversubscribe them
+        with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(max_workers=workers) as pool:
             out = list(pool.map(run, seeds))
     return np.array(out).reshape(surrogates, len(ks))
 
