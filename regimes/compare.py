@@ -238,8 +238,10 @@ def figure(ds: xr.Dataset) -> bytes:
     for extra in [d for d in pa.dims if d not in ("regime_a", "lat", "lon")]:
         pa, pb = pa.isel({extra: 0}), pb.isel({extra: 0})
     n = ds.sizes["pair"]
-    fig = Figure(figsize=(11, 2.6 * n + 0.8), layout="constrained")
-    axes = fig.subplots(n, 3, squeeze=False)
+    height = 2.4 * n + 1.6
+    fig = Figure(figsize=(11, height))
+    axes = fig.subplots(n, 3, squeeze=False, sharex=True, sharey=True)
+    fig.subplots_adjust(left=0.07, right=0.98, top=1 - 0.75 / height, bottom=1.2 / height, wspace=0.15, hspace=0.3)
     a_maps = [pa.sel(regime_a=int(ds["matched_regime_a"][p])) for p in range(n)]
     b_maps = [pb.sel(regime_b=int(ds["matched_regime_b"][p])) for p in range(n)]
     scale = float(np.nanmax(np.abs([*(m.values for m in a_maps), *(m.values for m in b_maps)]))) or 1.0
@@ -263,7 +265,8 @@ def figure(ds: xr.Dataset) -> bytes:
     for ax in axes[-1]:
         ax.set_xlabel("longitude (degrees east)", fontsize=8)
     fig.suptitle(f"A = {ds.attrs['source_a']}\nB = {ds.attrs['source_b']}", fontsize=9)
-    fig.colorbar(mesh, ax=axes, orientation="horizontal", shrink=0.6, label=f"anomaly ({unit})")
+    bar = fig.add_axes([0.3, 0.55 / height, 0.4, 0.12 / height])
+    fig.colorbar(mesh, cax=bar, orientation="horizontal", label=f"anomaly ({unit})")
     buffer = io.BytesIO()
     fig.savefig(buffer, format="png", dpi=100)
     return buffer.getvalue()
