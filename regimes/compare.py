@@ -193,8 +193,10 @@ def compare(a: RegimeSet, b: RegimeSet) -> xr.Dataset:
     }
     for name, (values, long_name, u) in pair.items():
         ds[name] = ("pair", values, {"long_name": long_name, "units": u})
-    ds["pattern_a"] = pa.rename(regime="regime_a").drop_vars("regime_a").assign_attrs(long_name="anomaly pattern of each regime, set A", units=unit)
-    ds["pattern_b"] = pb.rename(regime="regime_b").drop_vars("regime_b").assign_attrs(long_name="anomaly pattern of each regime, set B, on the grid of A", units=unit)
+    ds["pattern_a"] = pa.rename(regime="regime_a").drop_vars("regime_a").drop_encoding().assign_attrs(long_name="anomaly pattern of each regime, set A", units=unit)
+    ds["pattern_b"] = pb.rename(regime="regime_b").drop_vars("regime_b").drop_encoding().assign_attrs(
+        long_name="anomaly pattern of each regime, set B, on the grid of A", units=unit
+    )
     ds.attrs.update(
         source_a=f"{a.kind}: {a.source}", source_b=f"{b.kind}: {b.source}",
         comment="regimes matched one to one by the Hungarian method (Kuhn 1955) maximising the summed pattern correlation; differences are B minus A",

@@ -77,6 +77,8 @@ def _members(field: xr.DataArray) -> xr.DataArray:
         field = field.assign_coords(member=np.arange(field.sizes["member"], dtype=np.int32))
     attrs = {"standard_name": "realization", "long_name": "ensemble member", **field["member"].attrs}
     attrs.pop("axis", None)
+    if np.issubdtype(field["member"].dtype, np.number):
+        attrs.setdefault("units", "1")  # CF 1.8: the canonical units of standard_name realization
     field["member"].attrs = attrs
     log.info("%d ensemble members along '%s', classified member by member", field.sizes["member"], member)
     return field
@@ -227,7 +229,7 @@ def regrid(field: xr.DataArray, lat: np.ndarray, lon: np.ndarray, what: str, ont
             interpolate[dim] = np.clip(values, source.min(), source.max())
     if interpolate:
         log.warning("interpolating %s bilinearly from its grid (%s) to %s (%s)", what, described, onto, _describe(lat, lon))
-        field = field.interp(interpolate, method="linear").astype(np.float32)
+        field = field.interp(interpolate, method="linear").astype(field.dtype)
     return field.assign_coords(lat=("lat", lat), lon=("lon", lon))
 
 
