@@ -87,6 +87,8 @@ def prepare(cfg: SimpleNamespace, model: RegimeModel | None = None) -> Prepared:
     else:
         field = conform.to_model(field, model, d.period).where(model.dataset["mask"] == 1)
         kind = model.settings["climatology"]
+        if kind in ("daily", "monthly") and data.time_step_kind(field["time"]) != kind:
+            log.warning("the model removed a %s climatology but these data are %s", kind, data.time_step_kind(field["time"]))
         reference = model.climatology() if cfg.assign.climatology == "model" else None
         required = model.layout().keep
 

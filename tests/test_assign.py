@@ -331,3 +331,11 @@ def test_assign_takes_the_threshold_from_the_model(planted, with_unassigned, tmp
     status, err = assign_cli(with_unassigned / "model.nc", folder / "fine.nc", "--config", path, "--output", tmp_path / "looser", capsys=capsys)
     assert status == 0, err
     assert np.sum(labels_of(tmp_path / "looser")["label"].values == 0) < np.sum(labels_of(with_unassigned)["label"].values == 0)
+
+
+def test_the_run_folder_is_not_overwritten_by_an_assignment(planted, capsys):
+    folder, _, _, fit = planted
+    before = {p.name: p.read_bytes() for p in fit.iterdir()}
+    status, err = assign_cli(fit / "model.nc", folder / "fine.nc", "--output", fit, "--overwrite", capsys=capsys)
+    assert status == 2 and len(err) == 1 and "model.nc" in err[0], err
+    assert {p.name: p.read_bytes() for p in fit.iterdir()} == before
