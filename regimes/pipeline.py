@@ -80,17 +80,7 @@ def prepare(cfg: SimpleNamespace, model: RegimeModel | None = None) -> Prepared:
     ds = data.open_inputs(d.paths)
     field = data.standardise(data.pick_variable(ds, d.variable), ds, d.chunk_days)
     data.segment_starts(field["time"])  # refuses unsorted or duplicated time steps
-    if model is None:
-        field = data.select(field, d.lat, d.lon, d.level, d.period)
-        kind = data.time_step_kind(field["time"]) if a.climatology == "auto" else a.climatology
-        reference, required = None, None
-    else:
-        field = conform.to_model(field, model, d.period).where(model.dataset["mask"] == 1)
-        kind = model.settings["climatology"]
-        if kind in ("daily", "monthly") and data.time_step_kind(field["time"]) != kind:
-            log.warning("the model removed a %s climatology but these data are %s", kind, data.time_step_kind(field["time"]))
-        reference = model.climatology() if cfg.assign.climatology == "model" else None
-        required = model.layout().keep
+    field, kind, reference, required = _selected(cfg, field, model)
 
     def climatology(f):
         if reference is not None:
@@ -147,6 +137,32 @@ def prepare(cfg: SimpleNamespace, model: RegimeModel | None = None) -> Prepared:
         summary=summary,
         members=members,
     )
+
+
+def _selected(cfg: SimpleNamespace, field: xr.DataArray, model: RegimeModel | None):
+    """The field selected by the config, or brought to a saved model (its points only).
+
+    Returns
+    -------
+    field : xarray.DataArray
+    kind : str
+        Climatology kind.
+    reference : xarray.DataArray or None
+        The model's climatology coefficients, when the anomalies are taken from them.
+    required : numpy.ndarray of bool or None
+        Flat mask of the model's grid points.
+    """
+    d, a = cfg.data, cfg.anomalies
+    if model is None:
+        field = data.select(field, d.lat, d.lon, d.level, d.period)
+        kind = data.time_step_kind(field["time"]) if a.climatology == "auto" else a.climatology
+        return field, kind, None, None
+    field = conform.to_model(field, model, d.period).where(model.dataset["mask"] == 1)
+    kind, step = model.settings["climatology"], data.time_step_kind(field["time"])
+    if kind in ("daily", "monthly") and step != kind:
+        log.warning("the model removed a %s climatology but these data are %s", kind, step)
+    reference = model.climatology() if cfg.assign.climatology == "model" else None
+    return field, kind, reference, model.layout().keep
 
 
 def _stack(layout: Layout, field: xr.DataArray) -> xr.DataArray:
