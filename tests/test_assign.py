@@ -48,9 +48,9 @@ def assign_cli(*args, capsys=None):
 
 @pytest.fixture(scope="module")
 def planted(tmp_path_factory):
-    """Six years of daily fields with three planted regimes on a 1-degree grid, and a 1-degree run (DJF) on them."""
+    """Four years of daily fields with three planted regimes on a 1-degree grid, and a 1-degree run (DJF) on them."""
     folder = tmp_path_factory.mktemp("assign")
-    data, truth = synthetic.planted_regimes(years=6, lat=LAT, lon=LON, k=3, seed=4)
+    data, truth = synthetic.planted_regimes(years=4, lat=LAT, lon=LON, k=3, seed=4)
     synthetic.write_netcdf(data, folder / "fine.nc")
     out = run_job(folder, folder / "fine.nc", "fit")
     return folder, data, truth, out
@@ -87,7 +87,7 @@ def test_assigning_the_fitting_data_reproduces_the_run(planted, tmp_path, capsys
 def test_model_saved_and_reloaded_classifies_identically(planted, tmp_path, method):
     folder, _, _, _ = planted
     path = tmp_path / "job.toml"
-    job = JOB.format(path=folder / "fine.nc", out="unused", extra=f'method = "{method}"')
+    job = JOB.format(path=folder / "fine.nc", out="unused", extra=f'method = "{method}"').replace("[eof]", 'period = ["1981-01-01", "1982-12-31"]\n[eof]')
     path.write_text(job.replace("restarts = 5", "restarts = 2") if method == "gaussian-mixture" else job)
     cfg, _ = config.load(path)
     prep = pipeline.prepare(cfg)
