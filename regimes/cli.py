@@ -1,4 +1,4 @@
-"""Command line: ``regimes run CONFIG``, ``regimes scan CONFIG`` and ``regimes init``.
+"""Command line: ``regimes run``, ``scan``, ``assign``, ``compare`` and ``init``.
 
 User errors (:class:`~regimes.errors.UserError`) end with one line on
 standard error and exit status 2; anything else is a bug and keeps its
@@ -57,6 +57,31 @@ def _scan(args) -> None:
     print(f"wrote {folder / 'scan.nc'}")
 
 
+def _assign(args) -> None:
+    from . import pipeline
+    from .model import RegimeModel
+
+    model = RegimeModel.load(args.model)
+    cfg, text = config.for_model(model.settings, args.data, args.config, args.own_climatology)
+    output_dir = args.output or str(Path(cfg.output.dir) / "assigned")
+    pipeline.assign(cfg, text, model, args.model, output_dir=output_dir, overwrite=args.overwrite, command=" ".join(["regimes", *sys.argv[1:]]))
+
+
+def _compare(args) -> None:
+    from . import compare, output
+
+    a, b = compare.read(args.a), compare.read(args.b)
+    folder = output.check_folder(args.output, args.overwrite, a.inputs + b.inputs)
+    result = compare.compare(a, b)
+    result.attrs.update(output.provenance(" ".join(["regimes", *sys.argv[1:]]), None, a.inputs + b.inputs))
+    result.attrs["title"] = "regimes: comparison of two regime sets"
+    picture = compare.figure(result)
+    output.write(output.coordinate_attrs(result), folder / "comparison.nc")
+    output.write_bytes(picture, folder / "comparison.png")
+    print(compare.table(result))
+    print(f"wrote {folder / 'comparison.nc'} and {folder / 'comparison.png'}")
+
+
 def _init(args) -> None:
     path = Path(args.path)
     if path.exists() and not args.overwrite:
@@ -83,6 +108,20 @@ def parser() -> argparse.ArgumentParser:
     sc.add_argument("--output", help="output folder (default: output.dir/scan)")
     sc.add_argument("--overwrite", action="store_true", help="allow writing into an existing output folder")
     sc.set_defaults(func=_scan)
+    asg = sub.add_parser("assign", help="classify other data with a saved regime model")
+    asg.add_argument("model", help="model file (model.nc of a run)")
+    asg.add_argument("data", nargs="+", help="NetCDF files or glob patterns to classify")
+    asg.add_argument("--config", help="TOML config: data.variable, data.period, regimes.unassigned_below, assign.climatology, output.dir, ...")
+    asg.add_argument("--own-climatology", action="store_true", help="anomalies from a climatology fitted on the new data (assign.climatology = 'own')")
+    asg.add_argument("--output", help="output folder (default: output.dir/assigned)")
+    asg.add_argument("--overwrite", action="store_true", help="allow writing into an existing output folder")
+    asg.set_defaults(func=_assign)
+    cmp = sub.add_parser("compare", help="match the regimes of two runs or models and report their differences")
+    cmp.add_argument("a", help="output folder of a run (or assignment), or a model file")
+    cmp.add_argument("b", help="output folder of a run (or assignment), or a model file")
+    cmp.add_argument("--output", default="comparison", help="output folder (default ./comparison)")
+    cmp.add_argument("--overwrite", action="store_true", help="allow writing into an existing output folder")
+    cmp.set_defaults(func=_compare)
     init = sub.add_parser("init", help="write a starter config listing every key")
     init.add_argument("path", nargs="?", default="regimes.toml", help="file to write (default regimes.toml)")
     init.add_argument("--overwrite", action="store_true", help="replace an existing file")

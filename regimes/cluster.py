@@ -3,7 +3,9 @@
 Both classes take their parameters in ``__init__``, learn in ``fit`` (which
 returns self) and classify new PCs with ``predict``. Labels are 1..k,
 numbered most frequent first (ties broken by the centroid coordinates), so the
-same data and seed always give the same numbering.
+same data and seed always give the same numbering. Label 0
+(:data:`UNASSIGNED`) marks a day too unlike its nearest regime, when a
+threshold is set (:func:`leave_unassigned`).
 """
 
 from __future__ import annotations
@@ -12,6 +14,9 @@ import numpy as np
 import xarray as xr
 
 from .errors import UserError
+
+UNASSIGNED = 0
+"""Label of a day left out of every regime (pattern correlation below the threshold)."""
 
 
 def _as_matrix(pcs: xr.DataArray) -> np.ndarray:
@@ -304,3 +309,49 @@ def make_clusterer(method: str, k: int, restarts: int, max_iterations: int, rng:
     """The clustering object for a config's ``regimes.method``."""
     kinds = {"kmeans": KMeansRegimes, "gaussian-mixture": GaussianMixtureRegimes}
     return kinds[method](k=k, restarts=restarts, max_iterations=max_iterations, rng=rng)
+
+
+def pattern_correlation(pcs: xr.DataArray, centroids: xr.DataArray) -> xr.DataArray:
+    """Uncentred pattern correlation of each sample with each regime centroid, dims ``(sample, regime)``.
+
+    ``r = (x . c) / (|x| |c|)`` with ``x`` the sample's PC vector and ``c``
+    the centroid. The EOFs are orthonormal, so this is also the uncentred
+    correlation of the two maps in the area-weighted anomaly space (anomaly
+    minus the fitted EOF mean, times the EOF weights) truncated to the
+    retained EOFs: an anomaly correlation in the sense of Michelangeli,
+    Vautard & Legras (1995), J. Atmos. Sci. 52, 1237-1256.
+    """
+    x = _as_matrix(pcs)
+    c = np.asarray(centroids.transpose("regime", "mode").values, dtype=np.float64)
+    norms = np.linalg.norm(x, axis=1)[:, None] * np.linalg.norm(c, axis=1)[None, :]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = np.where(norms > 0, (x @ c.T) / np.where(norms > 0, norms, 1.0), 0.0)
+    return xr.DataArray(r, dims=("sample", "regime"), coords={"sample": pcs["sample"], "regime": centroids["regime"]})
+
+
+def leave_unassigned(labels: np.ndarray, pcs: xr.DataArray, centroids: xr.DataArray, threshold: float | None) -> tuple[np.ndarray, np.ndarray | None]:
+    """Label 0 (:data:`UNASSIGNED`) for samples whose pattern correlation with their own regime is below ``threshold``.
+
+    Parameters
+    ----------
+    labels : array (sample)
+        Regimes 1..k: the nearest centroid (k-means) or the most probable
+        component, whose mean is its centroid (mixture).
+    pcs : DataArray (sample, mode)
+    centroids : DataArray (regime, mode)
+    threshold : float or None
+        None leaves every label as it is.
+
+    Returns
+    -------
+    labels : numpy.ndarray of int8
+    correlation : numpy.ndarray (sample) or None
+        The pattern correlation (:func:`pattern_correlation`) of each sample
+        with the regime of its label before thresholding; None without a threshold.
+    """
+    labels = np.asarray(labels).astype(np.int8)
+    if threshold is None:
+        return labels, None
+    r = pattern_correlation(pcs, centroids).values
+    own = r[np.arange(labels.size), labels.astype(np.intp) - 1]
+    return np.where(own < threshold, np.int8(UNASSIGNED), labels).astype(np.int8), own

@@ -163,6 +163,12 @@ def _open_fraction(path, value):
     return float(value)
 
 
+def _correlation(path, value):
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not -1 <= value <= 1:
+        raise _fail(path, value, "a correlation between -1 and 1, e.g. 0.3")
+    return float(value)
+
+
 def _names(path, value):
     if not isinstance(value, list) or not all(isinstance(v, str) and v.strip() for v in value):
         raise _fail(path, value, "a list of non-empty strings")
@@ -217,6 +223,20 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "names": Key(None, _optional(_names), "names of the regimes 1..k (most frequent first)", ["first", "second", "third", "fourth"]),
         "min_duration_days": Key(0, _integer(0), "episodes shorter than this are not counted in duration statistics (0: all)"),
         "max_iterations": Key(300, _integer(1), "iteration limit of each restart"),
+        "unassigned_below": Key(
+            None,
+            _optional(_correlation),
+            "a day whose pattern correlation with its nearest regime centroid (uncentred, in the area-weighted space of the "
+            "retained EOFs) is below this gets label 0, 'unassigned', a state of its own in the statistics (unset: every day gets a regime)",
+            0.3,
+        ),
+    },
+    "assign": {
+        "climatology": Key(
+            "model",
+            _choice("model", "own"),
+            "regimes assign only: anomalies from the model's reference climatology (model) or from a climatology of the same kind fitted on the new data (own)",
+        ),
     },
     "scan": {
         "k_range": Key([2, 8], _k_range, "smallest and largest k tried by 'regimes scan' and by regimes.k = \"auto\""),
@@ -311,6 +331,12 @@ def load(path: str | Path) -> tuple[SimpleNamespace, str]:
     text : str
         The file's text, kept for provenance.
     """
+    raw, text = parse(path)
+    return validate(raw, Path(path).resolve().parent), text
+
+
+def parse(path: str | Path) -> tuple[dict, str]:
+    """Read a TOML config file without validating it: the parsed document and the file's text."""
     path = Path(path)
     try:
         text = path.read_text(encoding="utf-8")
@@ -322,7 +348,76 @@ def load(path: str | Path) -> tuple[SimpleNamespace, str]:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise UserError(f"config file '{path}' is not valid TOML: {err}; fix the file") from None
-    return validate(raw, path.resolve().parent), text
+    return raw, text
+
+
+MODEL_FIXED = {
+    "data": ("lat", "lon", "level", "months"),
+    "anomalies": ("climatology", "harmonics", "detrend", "running_mean_days"),
+    "eof": ("weighting",),
+    "regimes": ("method", "k", "names"),
+}
+"""Keys a saved model fixes when it classifies other data (its selection, anomalies, weights and regimes)."""
+
+MODEL_DEFAULTS = {"regimes": ("min_duration_days", "unassigned_below")}
+"""Keys taken from the saved model unless the config sets them."""
+
+
+def for_model(
+    settings: dict, paths: list[str], path: str | Path | None = None, own_climatology: bool = False
+) -> tuple[SimpleNamespace, str | None]:
+    """The config of ``regimes assign``: a model's settings with the new data and an optional config file.
+
+    Parameters
+    ----------
+    settings : dict
+        :attr:`regimes.model.RegimeModel.settings`.
+    paths : list of str
+        Data files or glob patterns (relative to the working folder); they
+        replace ``data.paths`` of the config file.
+    path : path, optional
+        A config file; its keys in :data:`MODEL_FIXED` must agree with the
+        model, keys only used in fitting (``eof.modes``, ``regimes.restarts``
+        ...) are ignored. ``data.variable`` defaults to the model's variable.
+    own_climatology : bool
+        Sets ``assign.climatology = "own"``.
+
+    Returns
+    -------
+    config : types.SimpleNamespace
+        Validated config carrying the model's values of :data:`MODEL_FIXED`.
+    text : str or None
+        The config file's text.
+
+    Raises
+    ------
+    UserError
+        If the config file is invalid or sets a fixed key to another value than the model's.
+    """
+    raw, text = parse(path) if path is not None else ({}, None)
+    base = Path(path).resolve().parent if path is not None else Path.cwd()
+    raw = dict(raw)
+    if isinstance(raw.get("data", {}), dict):  # else validate() reports the entry
+        raw["data"] = {"variable": settings["variable"], **raw.get("data", {}), "paths": [str(Path(p).absolute()) for p in paths]}
+    if own_climatology and isinstance(raw.get("assign", {}), dict):
+        raw["assign"] = {**raw.get("assign", {}), "climatology": "own"}
+    cfg = validate(raw, base)
+    for section, keys in MODEL_FIXED.items():
+        for key in keys:
+            model_value = settings[key]
+            if key in raw.get(section, {}):
+                value = getattr(getattr(cfg, section), key)
+                if value != model_value and not (key == "climatology" and value == "auto"):
+                    raise UserError(
+                        f"config key '{section}.{key}' = {value!r} differs from the model's {model_value!r}; "
+                        "the model fixes it: remove the key from the config or fit a new model"
+                    )
+            setattr(getattr(cfg, section), key, model_value)
+    for section, keys in MODEL_DEFAULTS.items():
+        for key in keys:
+            if key not in raw.get(section, {}) and key in settings:
+                setattr(getattr(cfg, section), key, settings[key])
+    return cfg, text
 
 
 def _toml_value(value: Any) -> str:

@@ -15,7 +15,10 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
+from .cluster import GaussianMixtureRegimes, KMeansRegimes
+from .eof import EOF
 from .errors import UserError
+from .stacking import Layout
 
 FORMAT_VERSION = 1
 
@@ -49,7 +52,8 @@ class RegimeModel:
         Variables ``mask``, ``weight`` (grid), ``climatology`` (term, grid),
         ``eof_mean`` (grid), ``eof`` (mode, grid), ``eigenvalue`` (mode),
         ``centroid`` (regime, mode), for mixtures ``covariance`` and
-        ``mixing_weight``; attribute ``settings`` (JSON of the selection and
+        ``mixing_weight``; ``frequency`` and ``mean_duration`` (regime) of
+        the fitting data; attribute ``settings`` (JSON of the selection and
         method settings).
     """
 
@@ -60,6 +64,49 @@ class RegimeModel:
     def settings(self) -> dict:
         """Selection, anomaly and method settings the model was fitted with."""
         return json.loads(self.dataset.attrs["settings"])
+
+    def layout(self) -> Layout:
+        """The model's grid and the points it uses (``mask`` = 1)."""
+        mask = self.dataset["mask"]
+        return Layout(mask, mask.values.ravel() == 1)
+
+    def weights(self, layout: Layout) -> xr.DataArray:
+        """EOF weight of each used point, dims ``(feature)``."""
+        return layout.flatten(self.dataset["weight"])
+
+    def climatology(self) -> xr.DataArray | None:
+        """Reference climatology coefficients ``(term, grid)``, or None when the model removed none."""
+        if "climatology" not in self.dataset:
+            return None
+        clim = self.dataset["climatology"]
+        terms = clim.attrs["terms"].split()
+        if self.settings["climatology"] == "monthly":
+            terms = [int(t) for t in terms]
+        return clim.assign_coords(term=terms)
+
+    def eof(self, layout: Layout) -> EOF:
+        """The fitted EOFs as an :class:`~regimes.eof.EOF` on the used points, ready to ``transform``."""
+        ds = self.dataset
+        eof = EOF(modes=ds.sizes["mode"])
+        eof.weights_ = self.weights(layout)
+        eof.mean_ = layout.flatten(ds["eof_mean"])
+        patterns = ds["eof"].transpose("mode", *layout.feature_dims).values.reshape(ds.sizes["mode"], -1)[:, layout.index]
+        eof.components_ = xr.DataArray(patterns, dims=("mode", "feature"), coords={"mode": ds["mode"].values})
+        eof.eigenvalues_ = ds["eigenvalue"]
+        return eof
+
+    def clusterer(self) -> KMeansRegimes | GaussianMixtureRegimes:
+        """The fitted regimes (centroids, and for mixtures covariances and weights), ready to ``predict``."""
+        ds, s = self.dataset, self.settings
+        centroids = ds["centroid"].drop_vars("regime_name", errors="ignore")
+        if s["method"] == "gaussian-mixture":
+            found = GaussianMixtureRegimes(k=s["k"])
+            found.covariances_ = ds["covariance"].drop_vars("regime_name", errors="ignore")
+            found.mixing_weights_ = ds["mixing_weight"].drop_vars("regime_name", errors="ignore")
+        else:
+            found = KMeansRegimes(k=s["k"])
+        found.centroids_ = centroids
+        return found
 
     def stamped(self, attrs: dict | None = None) -> xr.Dataset:
         """The dataset to write, with extra global ``attrs``, the format version and the checksum."""

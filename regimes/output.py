@@ -126,6 +126,20 @@ def write(ds: xr.Dataset, path: Path) -> Path:
     return path
 
 
+def write_bytes(content: bytes, path: Path) -> Path:
+    """Write ``content`` (e.g. a PNG) to ``path`` atomically, like :func:`write`."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.partial-{os.getpid()}")
+    try:
+        tmp.write_bytes(content)
+        os.replace(tmp, path)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+    return path
+
+
 def write_all(files: dict[str, xr.Dataset], folder: Path, overwrite: bool) -> list[Path]:
     """Write several result files into ``folder``, each atomically.
 

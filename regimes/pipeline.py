@@ -21,10 +21,11 @@ import numpy as np
 import xarray as xr
 from dask.diagnostics import ProgressBar
 
-from . import anomalies, data, output, results, scan, stats
-from .cluster import make_clusterer
+from . import anomalies, conform, data, output, results, scan, stats
+from .cluster import leave_unassigned, make_clusterer
 from .eof import EOF
 from .errors import UserError
+from .model import RegimeModel
 from .stacking import Layout
 from .weights import area_weights
 
@@ -52,6 +53,7 @@ class Prepared:
     segment_start: np.ndarray  # (sample) bool
     season_year: np.ndarray  # (sample) int
     summary: dict
+    members: xr.DataArray | None = None  # ensemble members; samples are then member-major (member, time) pairs
 
 
 @contextlib.contextmanager
@@ -65,23 +67,35 @@ def stage(name: str):
     log.info("%s done in %.1f s", name, time.perf_counter() - started)
 
 
-def prepare(cfg: SimpleNamespace) -> Prepared:
-    """Read, select, find missing points, remove the climatology, cut the season, stack."""
+def prepare(cfg: SimpleNamespace, model: RegimeModel | None = None) -> Prepared:
+    """Read, select, find missing points, remove the climatology, cut the season, stack.
+
+    With a saved ``model`` (``regimes assign``) the field is brought to the
+    model's grid, units and level (:func:`regimes.conform.to_model`), and the
+    model's grid points, weights and, unless ``assign.climatology = "own"``,
+    its reference climatology are used. An ensemble's own climatology is
+    fitted on the ensemble mean, one climatology for every member.
+    """
     d, a = cfg.data, cfg.anomalies
     ds = data.open_inputs(d.paths, d.chunk_days)
     field = data.standardise(data.pick_variable(ds, d.variable), ds, d.chunk_days)
     data.segment_starts(field["time"])  # refuses unsorted or duplicated time steps
-    field = data.select(field, d.lat, d.lon, d.level, d.period)
-    kind = data.time_step_kind(field["time"]) if a.climatology == "auto" else a.climatology
-    basis, coefficients = anomalies.climatology_coefficients(field, kind, a.harmonics, a.base_period)
+    field, kind, reference, required = _selected(cfg, field, model)
+
+    def climatology(f):
+        if reference is not None:
+            return anomalies.basis_for(kind, f["time"], a.harmonics), reference
+        return anomalies.climatology_coefficients(f.mean("member") if "member" in f.dims else f, kind, a.harmonics, a.base_period)
+
+    basis, coefficients = climatology(field)
     # named point: the missing-value census and the climatology fit share one read of the field
     census, coefficients = dask.compute(missing_census(field), coefficients)
-    complete, keep = check_missing(field, census, d.drop_incomplete_days)
+    complete, keep = check_missing(field, census, d.drop_incomplete_days, required)
     if complete.size < field.sizes["time"]:
         field = field.isel(time=complete)
-        basis, coefficients = anomalies.climatology_coefficients(field, kind, a.harmonics, a.base_period)
+        basis, coefficients = climatology(field)
         coefficients = coefficients.compute() if coefficients is not None else None  # named point: refit without the dropped days
-    layout = Layout(field.isel(time=0, drop=True), keep)
+    layout = model.layout() if model is not None else Layout(field.isel(time=0, drop=True), keep)
     if coefficients is not None:
         anomaly = field - anomalies.evaluate(basis, coefficients, field)
     else:
@@ -90,13 +104,15 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
     anomaly = data.select_months(anomaly, d.months)
     if a.detrend:
         anomaly, _ = anomalies.detrend(anomaly)
-    stacked, raw = layout.stack(anomaly), layout.stack(field.sel(time=anomaly["time"]))
+    members = anomaly["member"] if "member" in anomaly.dims else None
+    stacked, raw = _stack(layout, anomaly), _stack(layout, field.sel(time=anomaly["time"]))
     rows = max(1, min(BLOCK_BYTES // (4 * stacked.sizes["feature"]), -(-stacked.sizes["sample"] // 4)))
     stacked = stacked.chunk({"sample": rows})
     if stacked.size * 4 < MEMORY_BUDGET_BYTES:
         stacked = stacked.persist()  # named point: the selected anomalies fit in memory
     time_axis = anomaly["time"]
-    segment_start = data.segment_starts(time_axis)
+    copies = 1 if members is None else members.size
+    segment_start = np.tile(data.segment_starts(time_axis), copies)
     summary = {
         "files": ds.attrs["input_files"],
         "days": int(time_axis.size),
@@ -104,35 +120,74 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
         "last_day": str(time_axis.values[-1])[:10],
         "grid_points": int(keep.size),
         "points_used": int(keep.sum()),
-        "segments": int(segment_start.sum()),
+        "segments": int(segment_start.sum() // copies),
+        "members": copies,
     }
+    weights = model.weights(layout) if model is not None else layout.flatten(area_weights(field, cfg.eof.weighting))
     return Prepared(
         anomaly=stacked,
         raw=raw,
-        weights=layout.flatten(area_weights(field, cfg.eof.weighting)),
+        weights=weights,
         layout=layout,
         template=field,
         climatology=coefficients,
         climatology_kind=kind,
         segment_start=segment_start,
-        season_year=data.season_year(time_axis, d.months).values,
+        season_year=np.tile(data.season_year(time_axis, d.months).values, copies),
         summary=summary,
+        members=members,
     )
 
 
+def _selected(cfg: SimpleNamespace, field: xr.DataArray, model: RegimeModel | None):
+    """The field selected by the config, or brought to a saved model (its points only).
+
+    Returns
+    -------
+    field : xarray.DataArray
+    kind : str
+        Climatology kind.
+    reference : xarray.DataArray or None
+        The model's climatology coefficients, when the anomalies are taken from them.
+    required : numpy.ndarray of bool or None
+        Flat mask of the model's grid points.
+    """
+    d, a = cfg.data, cfg.anomalies
+    if model is None:
+        field = data.select(field, d.lat, d.lon, d.level, d.period)
+        kind = data.time_step_kind(field["time"]) if a.climatology == "auto" else a.climatology
+        return field, kind, None, None
+    field = conform.to_model(field, model, d.period).where(model.dataset["mask"] == 1)
+    kind, step = model.settings["climatology"], data.time_step_kind(field["time"])
+    if kind in ("daily", "monthly") and step != kind:
+        log.warning("the model removed a %s climatology but these data are %s", kind, step)
+    reference = model.climatology() if cfg.assign.climatology == "model" else None
+    return field, kind, reference, model.layout().keep
+
+
+def _stack(layout: Layout, field: xr.DataArray) -> xr.DataArray:
+    """``(sample, feature)``; an ensemble's members one after another along ``sample`` (lazy)."""
+    if "member" not in field.dims:
+        return layout.stack(field)
+    return xr.concat([layout.stack(field.isel(member=i, drop=True)) for i in range(field.sizes["member"])], "sample")
+
+
 def missing_census(field: xr.DataArray) -> tuple[xr.DataArray, xr.DataArray]:
-    """Number of missing values at each grid point and on each day (lazy)."""
+    """Number of missing values at each grid point (over time and members) and on each day (lazy)."""
     missing = field.isnull()
-    return missing.sum("time"), missing.sum([d for d in field.dims if d != "time"])
+    return missing.sum([d for d in ("member", "time") if d in field.dims]), missing.sum([d for d in field.dims if d != "time"])
 
 
-def check_missing(field: xr.DataArray, census, drop_days: bool) -> tuple[np.ndarray, np.ndarray]:
+def check_missing(field: xr.DataArray, census, drop_days: bool, required: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Grid points missing at every time are left out; other gaps are an error or drop their days.
 
     Parameters
     ----------
     census : (per_point, per_day)
         Computed :func:`missing_census` of ``field``.
+    required : numpy.ndarray of bool, optional
+        Flat mask of the points a saved model uses: they must all be present,
+        and ``keep`` is this mask (``field`` is missing elsewhere).
 
     Returns
     -------
@@ -148,11 +203,16 @@ def check_missing(field: xr.DataArray, census, drop_days: bool) -> tuple[np.ndar
         present on other days and ``drop_days`` is false.
     """
     per_point, per_day = census
-    n_time = field.sizes["time"]
-    always = per_point.values == n_time
+    copies = field.sizes.get("member", 1)
+    always = per_point.values == field.sizes["time"] * copies
     if always.all():
         raise UserError(f"variable '{field.name}' is missing at every selected grid point and time; check the variable, box and period")
-    extra = per_day.values - always.sum()
+    if required is not None and (always.ravel() & required).any():
+        raise UserError(
+            f"variable '{field.name}' has no values at {int((always.ravel() & required).sum())} grid point(s) the model uses; "
+            "give data covering the model's grid points"
+        )
+    extra = per_day.values - always.sum() * copies
     bad = np.flatnonzero(extra > 0)
     if bad.size:
         if not drop_days:
@@ -161,9 +221,9 @@ def check_missing(field: xr.DataArray, census, drop_days: bool) -> tuple[np.ndar
                 "at points present on other days; set data.drop_incomplete_days = true to leave those days out"
             )
         log.warning("leaving out %d day(s) with missing values, first %s", bad.size, str(field["time"].values[bad[0]])[:10])
-    if always.any():
+    if always.any() and required is None:
         log.info("%d grid point(s) missing at every time are left out", int(always.sum()))
-    return np.flatnonzero(extra == 0), ~always.ravel()
+    return np.flatnonzero(extra == 0), (~always.ravel() if required is None else required)
 
 
 def principal_components(cfg: SimpleNamespace, prep: Prepared, rng: np.random.Generator) -> tuple[EOF, xr.DataArray]:
@@ -193,25 +253,41 @@ def scan_k(cfg: SimpleNamespace, prep: Prepared, pcs: xr.DataArray, rng: np.rand
         )
 
 
+def with_k(cfg: SimpleNamespace, k: int) -> SimpleNamespace:
+    """A copy of ``cfg`` with ``regimes.k`` set to ``k`` (the job as it ran, once "auto" is resolved)."""
+    return SimpleNamespace(**{**vars(cfg), "regimes": SimpleNamespace(**{**vars(cfg.regimes), "k": k})})
+
+
 def analyse(cfg: SimpleNamespace, prep: Prepared) -> dict:
-    """EOFs, the choice of k when it is "auto", clustering and statistics of prepared data."""
-    r = cfg.regimes
-    rng = np.random.default_rng(r.seed)
+    """EOFs, the choice of k when it is "auto", clustering and statistics of prepared data.
+
+    ``found["cfg"]`` is ``cfg`` with ``regimes.k`` resolved; ``found["scan"]``
+    the scan table that chose it (None for a fixed k).
+    """
+    rng = np.random.default_rng(cfg.regimes.seed)
     eof, pcs = principal_components(cfg, prep, rng)
-    table, k = None, r.k
-    if k == "auto":
+    table = None
+    if cfg.regimes.k == "auto":
         table = scan_k(cfg, prep, pcs, rng)
-        k = int(table.attrs["recommended_k"])
-        if k == 0:
+        if table.attrs["recommended_k"] == 0:
             raise UserError(f'regimes.k = "auto" found no k: {table.attrs["recommendation"]}; set regimes.k to a number')
         log.info("%s", table.attrs["recommendation"])
-    with stage(f"clustering ({r.method}, k = {k}, {r.restarts} restarts)"):
-        clusterer = make_clusterer(r.method, k, r.restarts, r.max_iterations, rng).fit(pcs)
-    labels = clusterer.labels_.values
-    states = np.arange(1, k + 1)
+        cfg = with_k(cfg, int(table.attrs["recommended_k"]))
+    r = cfg.regimes
+    with stage(f"clustering ({r.method}, k = {r.k}, {r.restarts} restarts)"):
+        clusterer = make_clusterer(r.method, r.k, r.restarts, r.max_iterations, rng).fit(pcs)
+    labels, correlation = leave_unassigned(clusterer.labels_.values, pcs, clusterer.centroids_, r.unassigned_below)
+    found = {"eof": eof, "pcs": pcs, "clusterer": clusterer, "cfg": cfg, "scan": table}
+    return {**found, **describe(cfg, prep, pcs, labels, correlation)}
+
+
+def describe(cfg: SimpleNamespace, prep: Prepared, pcs: xr.DataArray, labels: np.ndarray, correlation: np.ndarray | None) -> dict:
+    """Composites and statistics of labelled samples (label 0, unassigned, is a state of the statistics only)."""
+    states = results.label_states(cfg)
+    regimes = np.arange(1, cfg.regimes.k + 1)
     with stage("composites and statistics"):
         sums = dask.compute(  # named point: per-regime sums, one pass
-            stats.composite_sums(prep.anomaly, labels, states), stats.composite_sums(prep.raw, labels, states)
+            stats.composite_sums(prep.anomaly, labels, regimes), stats.composite_sums(prep.raw, labels, regimes)
         )
         runs = stats.episodes(labels, prep.segment_start)
         months = pcs["sample"].dt.month.values
@@ -219,16 +295,11 @@ def analyse(cfg: SimpleNamespace, prep: Prepared) -> dict:
             "frequency": stats.frequency(labels, states),
             "monthly_frequency": stats.frequency_by(labels, months, states, "month"),
             "yearly_frequency": stats.frequency_by(labels, prep.season_year, states, "season_year"),
-            "durations": stats.durations(runs, states, r.min_duration_days),
+            "durations": stats.durations(runs, states, cfg.regimes.min_duration_days),
             "transitions": stats.transitions(labels, prep.segment_start, states),
             "episodes": runs,
         }
-    return {"eof": eof, "pcs": pcs, "clusterer": clusterer, "sums": sums, "stats": summary, "k": k, "scan": table}
-
-
-def with_k(cfg: SimpleNamespace, k: int) -> SimpleNamespace:
-    """A copy of ``cfg`` with ``regimes.k`` set to ``k`` (the job as it ran, once "auto" is resolved)."""
-    return SimpleNamespace(**{**vars(cfg), "regimes": SimpleNamespace(**{**vars(cfg.regimes), "k": k})})
+    return {"labels": labels, "correlation": correlation, "sums": sums, "stats": summary}
 
 
 def run(cfg: SimpleNamespace, config_text: str | None, output_dir: str | None = None, overwrite: bool = False, command: str = "regimes run") -> Path:
@@ -264,7 +335,70 @@ def run(cfg: SimpleNamespace, config_text: str | None, output_dir: str | None = 
     if found["scan"] is not None:
         attrs["k_selection"] = found["scan"].attrs["recommendation"]
     with stage(f"writing results to {folder}"):
-        files = results.assemble(with_k(cfg, found["k"]), prep, found, attrs)
+        files = results.assemble(found["cfg"], prep, found, attrs)
         output.write_all(files, folder, overwrite)
     log.info("finished in %.1f s; results in %s", time.perf_counter() - started, folder)
     return folder
+
+
+def assign(
+    cfg: SimpleNamespace,
+    config_text: str | None,
+    model: RegimeModel,
+    model_path: str | Path,
+    output_dir: str | None = None,
+    overwrite: bool = False,
+    command: str = "regimes assign",
+) -> Path:
+    """Classify the data of ``cfg`` with a saved model and write labels, composites and statistics.
+
+    The same selection, weights and EOF projection as the fit; nearest
+    centroid (k-means) or most probable component (mixture); label 0 below
+    ``regimes.unassigned_below``. The output attributes record the model file
+    and checksum and where the climatology came from.
+
+    Parameters
+    ----------
+    cfg : types.SimpleNamespace
+        :func:`regimes.config.for_model` of the model's settings.
+    model : regimes.model.RegimeModel
+        The saved model, loaded from ``model_path`` (``model.nc`` of a run).
+
+    Returns
+    -------
+    pathlib.Path
+        The output folder.
+    """
+    started = time.perf_counter()
+    folder = output.check_folder(output_dir or cfg.output.dir, overwrite, [*data.expand_paths(cfg.data.paths), str(Path(model_path).resolve())])
+    with stage("reading the field and bringing it to the model"):
+        prep = prepare(cfg, model)
+    log.info(
+        "%d days from %s to %s in %d runs of consecutive days, %d member(s)",
+        prep.summary["days"], prep.summary["first_day"], prep.summary["last_day"], prep.summary["segments"], prep.summary["members"],
+    )
+    eof, clusterer = model.eof(prep.layout), model.clusterer()
+    with stage("projection on the model's EOFs and classification"):
+        pcs = eof.transform(prep.anomaly).compute()  # named point: (sample x mode) PCs
+        labels, correlation = leave_unassigned(clusterer.predict(pcs).values, pcs, clusterer.centroids_, cfg.regimes.unassigned_below)
+    found = {"eof": eof, "pcs": pcs, "clusterer": clusterer, **describe(cfg, prep, pcs, labels, correlation)}
+    with stage(f"writing results to {folder}"):
+        attrs = output.provenance(command, config_text, prep.summary["files"])
+        attrs.update(
+            model_file=str(Path(model_path).resolve()),
+            model_checksum=model.dataset.attrs["model_checksum"],
+            climatology_source=cfg.assign.climatology,
+            climatology_comment=_climatology_comment(cfg.assign.climatology, prep.climatology_kind),
+        )
+        files = results.assemble(cfg, prep, found, attrs, results.ASSIGN_FILES)
+        output.write_all(files, folder, overwrite)
+    log.info("finished in %.1f s; results in %s", time.perf_counter() - started, folder)
+    return folder
+
+
+def _climatology_comment(source: str, kind: str) -> str:
+    if kind == "none":
+        return "no climatology removed: the model was fitted on the field itself"
+    if source == "model":
+        return f"anomalies from the model's reference climatology ({kind})"
+    return f"anomalies from a {kind} climatology fitted on these data"

@@ -2,7 +2,10 @@
 
 Builds, from what the pipeline computed, the datasets written to the output
 folder: ``labels.nc``, ``composites.nc``, ``statistics.nc``, ``eofs.nc`` and
-the saved model ``model.nc``. Nothing here computes on the field.
+the saved model ``model.nc`` (``regimes assign`` writes the first three).
+Nothing here computes on the field. With an ensemble (``prep.members``) the
+samples are the member-major (member, time) pairs, put back on
+``(member, time)`` here.
 """
 
 from __future__ import annotations
@@ -14,43 +17,95 @@ import numpy as np
 import xarray as xr
 
 from . import stats
+from .cluster import UNASSIGNED
 from .model import RegimeModel
 from .output import coordinate_attrs, flag_meanings
+
+RUN_FILES = ("labels.nc", "composites.nc", "statistics.nc", "eofs.nc", "model.nc")
+ASSIGN_FILES = ("labels.nc", "composites.nc", "statistics.nc")
+
 
 def regime_names(cfg: SimpleNamespace) -> list[str]:
     """Names from the config, else ``regime_1 .. regime_k``."""
     return cfg.regimes.names or [f"regime_{i}" for i in range(1, cfg.regimes.k + 1)]
 
 
+def label_states(cfg) -> np.ndarray:
+    """The states of the daily labels: 1..k, and 0 (unassigned) first when ``regimes.unassigned_below`` is set."""
+    first = UNASSIGNED if cfg.regimes.unassigned_below is not None else 1
+    return np.arange(first, cfg.regimes.k + 1)
+
+
+def _state_names(cfg) -> list[str]:
+    return (["unassigned"] if cfg.regimes.unassigned_below is not None else []) + regime_names(cfg)
+
+
+def _n_time(prep) -> int:
+    return prep.season_year.size // (prep.members.size if prep.members is not None else 1)
+
+
+def _sample_dims(prep) -> tuple[tuple[str, ...], tuple[int, ...]]:
+    """Dims and shape that the sample axis unfolds into: ``(time)`` or ``(member, time)``."""
+    if prep.members is None:
+        return ("time",), (prep.season_year.size,)
+    return ("member", "time"), (prep.members.size, _n_time(prep))
+
+
 def _time(prep, pcs: xr.DataArray) -> dict:
-    return {"time": ("time", pcs["sample"].values, prep.template["time"].attrs)}
+    return {"time": ("time", pcs["sample"].values[: _n_time(prep)], prep.template["time"].attrs)}
 
 
 def _regime_coords(cfg) -> dict:
     return {"regime": np.arange(1, cfg.regimes.k + 1, dtype=np.int32), "regime_name": ("regime", regime_names(cfg))}
 
 
+def _state_coords(cfg) -> dict:
+    return {"regime": label_states(cfg).astype(np.int32), "regime_name": ("regime", _state_names(cfg))}
+
+
+def _label_attrs(cfg, long_name: str) -> dict:
+    return {"long_name": long_name, "flag_values": label_states(cfg).astype(np.int8), "flag_meanings": flag_meanings(_state_names(cfg))}
+
+
 def labels_file(cfg, prep, found) -> xr.Dataset:
-    clusterer, pcs = found["clusterer"], found["pcs"]
+    clusterer, pcs, labels = found["clusterer"], found["pcs"], found["labels"]
     k = cfg.regimes.k
     units = prep.template.attrs.get("units", "1")
-    ds = xr.Dataset(coords={**_time(prep, pcs), **_regime_coords(cfg), "mode": pcs["mode"].values.astype(np.int32)})
-    ds["label"] = ("time", clusterer.labels_.values.astype(np.int8), {
-        "long_name": "regime of each time step",
-        "flag_values": np.arange(1, k + 1, dtype=np.int8),
-        "flag_meanings": flag_meanings(regime_names(cfg)),
-    })
+    dims, shape = _sample_dims(prep)
+    n_time = _n_time(prep)
+    coords = {**_time(prep, pcs), **_regime_coords(cfg), "mode": pcs["mode"].values.astype(np.int32)}
+    if prep.members is not None:
+        coords["member"] = prep.members
+    ds = xr.Dataset(coords=coords)
+    ds["label"] = (dims, labels.astype(np.int8).reshape(shape), _label_attrs(cfg, "regime of each time step"))
     if clusterer.method == "kmeans":
-        ds["distance"] = (("regime", "time"), clusterer.distances(pcs).values.T.astype(np.float32), {
+        ds["distance"] = (("regime", *dims), clusterer.distances(pcs).values.T.astype(np.float32).reshape(k, *shape), {
             "long_name": "Euclidean distance to the regime centroid in PC space", "units": units,
         })
     else:
-        ds["probability"] = (("regime", "time"), clusterer.probabilities(pcs).values.T.astype(np.float32), {
+        ds["probability"] = (("regime", *dims), clusterer.probabilities(pcs).values.T.astype(np.float32).reshape(k, *shape), {
             "long_name": "membership probability of each regime", "units": "1",
         })
-    ds["pc"] = (("mode", "time"), pcs.values.T.astype(np.float32), {"long_name": "principal component (weighted anomaly projected on the EOF)", "units": units})
-    ds["season_year"] = ("time", prep.season_year.astype(np.int32), {"long_name": "year in which the season of this time step starts", "units": "1"})
-    ds["segment_start"] = ("time", prep.segment_start.astype(np.int8), {
+    ds["pc"] = (("mode", *dims), pcs.values.T.astype(np.float32).reshape(-1, *shape), {
+        "long_name": "principal component (weighted anomaly projected on the EOF)", "units": units,
+    })
+    if found["correlation"] is not None:
+        ds["pattern_correlation"] = (dims, found["correlation"].astype(np.float32).reshape(shape), {
+            "long_name": "uncentred pattern correlation with the nearest regime centroid in the area-weighted space of the retained EOFs",
+            "units": "1",
+            "comment": f"label {UNASSIGNED} (unassigned) where below regimes.unassigned_below = {cfg.regimes.unassigned_below:g}",
+        })
+    if prep.members is not None:
+        per_day = labels.reshape(shape)
+        ds["member_fraction"] = (("regime", "time"), np.stack([(per_day == r).mean(0) for r in range(1, k + 1)]), {
+            "long_name": "fraction of ensemble members in each regime", "units": "1",
+        })
+        if cfg.regimes.unassigned_below is not None:
+            ds["unassigned_member_fraction"] = ("time", (per_day == UNASSIGNED).mean(0), {
+                "long_name": "fraction of ensemble members unassigned", "units": "1",
+            })
+    ds["season_year"] = ("time", prep.season_year[:n_time].astype(np.int32), {"long_name": "year in which the season of this time step starts", "units": "1"})
+    ds["segment_start"] = ("time", prep.segment_start[:n_time].astype(np.int8), {
         "long_name": "first time step after a gap or a season boundary",
         "flag_values": np.array([0, 1], dtype=np.int8),
         "flag_meanings": "continues_previous starts_new_segment",
@@ -93,7 +148,7 @@ def statistics_file(cfg, prep, found) -> xr.Dataset:
     s = found["stats"]
     times = found["pcs"]["sample"].values
     runs = s["episodes"]
-    ds = xr.Dataset(coords=_regime_coords(cfg))
+    ds = xr.Dataset(coords=_state_coords(cfg))
     ds["frequency"] = s["frequency"].assign_attrs(long_name="fraction of time steps in each regime", units="1")
     ds["monthly_frequency"] = s["monthly_frequency"].assign_attrs(long_name="fraction of time steps in each regime by calendar month", units="1")
     ds["yearly_frequency"] = s["yearly_frequency"].assign_attrs(long_name="fraction of time steps in each regime by season-year", units="1")
@@ -115,12 +170,10 @@ def statistics_file(cfg, prep, found) -> xr.Dataset:
     ds["next_regime_probability"].attrs = {"long_name": "probability that regime_to follows when an episode of regime_from ends", "units": "1"}
     for c in ("regime_from", "regime_to"):
         ds[c].attrs = {"long_name": c.replace("_", " "), "units": "1"}
-    ds["episode_regime"] = ("episode", runs["regime"].values.astype(np.int8), {
-        "long_name": "regime of each episode",
-        "flag_values": np.arange(1, cfg.regimes.k + 1, dtype=np.int8),
-        "flag_meanings": flag_meanings(regime_names(cfg)),
-    })
+    ds["episode_regime"] = ("episode", runs["regime"].values.astype(np.int8), _label_attrs(cfg, "regime of each episode"))
     first = runs["first"].values
+    if prep.members is not None:
+        ds["episode_member"] = ("episode", prep.members.values[first // _n_time(prep)], {**prep.members.attrs, "long_name": "ensemble member of the episode"})
     ds["episode_start"] = ("episode", times[first], {"long_name": "first day of the episode"})
     ds["episode_end"] = ("episode", times[first + runs["length"].values - 1], {"long_name": "last day of the episode"})
     ds["episode_length"] = ("episode", runs["length"].values.astype(np.int32), {"long_name": "episode duration", "units": unit})
@@ -159,6 +212,11 @@ def model_dataset(cfg, prep, found) -> xr.Dataset:
     ds["eof"] = _grid(prep, eof.components_).assign_attrs(long_name="unit-norm EOF of the weighted field", units="1")
     ds["eigenvalue"] = eof.eigenvalues_.assign_attrs(long_name="variance of the PC")
     ds["centroid"] = clusterer.centroids_.assign_attrs(long_name="regime centroid in PC space")
+    regimes = np.arange(1, cfg.regimes.k + 1)
+    ds["frequency"] = ("regime", found["stats"]["frequency"].sel(regime=regimes).values, {"long_name": "fraction of the fitted time steps in each regime", "units": "1"})
+    ds["mean_duration"] = ("regime", found["stats"]["durations"]["mean_duration"].sel(regime=regimes).values, {
+        "long_name": "mean episode duration in the fitted data", "units": "days",
+    })
     if clusterer.method == "gaussian-mixture":
         ds["covariance"] = clusterer.covariances_.assign_attrs(long_name="regime covariance in PC space")
         ds["mixing_weight"] = clusterer.mixing_weights_.assign_attrs(long_name="mixture weight", units="1")
@@ -175,6 +233,8 @@ def model_dataset(cfg, prep, found) -> xr.Dataset:
         "detrend": cfg.anomalies.detrend, "running_mean_days": cfg.anomalies.running_mean_days,
         "weighting": cfg.eof.weighting, "method": clusterer.method, "k": cfg.regimes.k,
         "names": regime_names(cfg),
+        "min_duration_days": cfg.regimes.min_duration_days, "unassigned_below": cfg.regimes.unassigned_below,
+        "level_units": prep.template["level"].attrs.get("units") if "level" in prep.template.coords else None,
     }
     ds.attrs["settings"] = json.dumps(settings)
     return ds
@@ -188,8 +248,8 @@ def scan_file(table: xr.Dataset, attrs: dict) -> xr.Dataset:
     return ds
 
 
-def assemble(cfg, prep, found, attrs: dict) -> dict[str, xr.Dataset]:
-    """All result datasets of a run, keyed by file name, with CF and provenance attributes."""
+def assemble(cfg, prep, found, attrs: dict, names: tuple[str, ...] = RUN_FILES) -> dict[str, xr.Dataset]:
+    """The result datasets ``names`` (of :data:`RUN_FILES`), keyed by file name, with CF and provenance attributes."""
     builders = {
         "labels.nc": labels_file,
         "composites.nc": composites_file,
@@ -197,13 +257,15 @@ def assemble(cfg, prep, found, attrs: dict) -> dict[str, xr.Dataset]:
         "eofs.nc": eofs_file,
     }
     files = {}
-    for name, build in builders.items():
-        ds = coordinate_attrs(build(cfg, prep, found))
+    for name in names:
+        if name == "model.nc":
+            model = RegimeModel(coordinate_attrs(model_dataset(cfg, prep, found)))
+            files[name] = model.stamped({**attrs, "title": f"regimes: saved regime model of {cfg.data.variable}"})
+            continue
+        ds = coordinate_attrs(builders[name](cfg, prep, found))
         ds.attrs.update(attrs)
         ds.attrs["title"] = f"regimes: {name[:-3]} of {cfg.data.variable}"
         files[name] = ds
     if found.get("scan") is not None:
         files["scan.nc"] = scan_file(found["scan"], attrs)
-    model = RegimeModel(coordinate_attrs(model_dataset(cfg, prep, found)))
-    files["model.nc"] = model.stamped({**attrs, "title": f"regimes: saved regime model of {cfg.data.variable}"})
     return files

@@ -452,3 +452,43 @@ def test_synthetic_input_passes_cf_checker(synthetic_input, tmp_path):
     # the synthetic writer declares Conventions = "CF-1.8"; the IOOS compliance-checker should agree
     scores, text = _cf_check(synthetic_input, tmp_path)
     assert scores["high_count"] == 0, text
+
+
+# --------------------------------------------------------------------------
+# 6. CF-1.8 compliance of what 'regimes assign' (an ensemble, with the
+#    unassigned class) and 'regimes compare' write
+# --------------------------------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def assign_and_compare_outputs(synthetic_input, tmp_path_factory) -> list[Path]:
+    from regimes import cli, config, pipeline
+
+    folder = tmp_path_factory.mktemp("cf_assign")
+    job = folder / "job.toml"
+    text = CONFIG_TEMPLATE.format(data=synthetic_input.as_posix(), method="kmeans").replace("names = [", "unassigned_below = 0.5\nnames = [")
+    job.write_text(text, encoding="utf-8")
+    cfg, text = config.load(job)
+    run = pipeline.run(cfg, text, output_dir=str(folder / "run"))
+    with xr.open_dataset(synthetic_input) as ds:
+        data = ds.load()
+    members = xr.concat([data["psl"] + 50.0 * i for i in range(3)], "member").assign_attrs(data["psl"].attrs)
+    members = members.assign_coords(member=("member", np.arange(1, 4, dtype=np.int32), {"standard_name": "realization", "long_name": "ensemble member"}))
+    write_netcdf(xr.Dataset({"psl": members.transpose("member", "time", "lat", "lon")}, attrs=data.attrs), folder / "ensemble.nc")
+    assert cli.main(["--quiet", "assign", str(run / "model.nc"), str(folder / "ensemble.nc"), "--output", str(folder / "assigned")]) == 0
+    assert cli.main(["--quiet", "compare", str(run), str(folder / "assigned"), "--output", str(folder / "compared")]) == 0
+    return [folder / "assigned" / name for name in ("labels.nc", "composites.nc", "statistics.nc")] + [folder / "compared" / "comparison.nc"]
+
+
+def test_assign_and_compare_outputs_pass_cf_checker(assign_and_compare_outputs, tmp_path):
+    failures = {}
+    for path in assign_and_compare_outputs:
+        scores, text = _cf_check(path, tmp_path)
+        # IOOS compliance-checker, CF 1.8 suite: no high-priority failures, no "Errors" section in the report
+        if scores["high_count"] != 0 or "Errors" in text:
+            failures[path.name] = text
+    assert not failures, "\n".join(f"== {name}\n{text}" for name, text in failures.items())
+    with xr.open_dataset(assign_and_compare_outputs[0]) as labels:
+        # CF 1.8 section 3.5: flag_values and flag_meanings of equal length; 0 means unassigned
+        assert len(labels["label"].attrs["flag_values"]) == len(labels["label"].attrs["flag_meanings"].split())
+        assert labels["label"].attrs["flag_values"][0] == 0 and labels["label"].attrs["flag_meanings"].split()[0] == "unassigned"
