@@ -31,7 +31,6 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 import xarray as xr
 from scipy.optimize import linear_sum_assignment
-from sklearn.metrics import silhouette_score
 from threadpoolctl import threadpool_limits
 
 from .cluster import GaussianMixtureRegimes, KMeansRegimes, batched_lloyd, kmeans_plus_plus
@@ -342,6 +341,8 @@ def scan(
         raise UserError(f"k = {max(ks)} is larger than the number of selected days ({n}); lower the --k range")
     if not 0 < confidence < 1:
         raise UserError(f"confidence = {confidence}: expected a fraction between 0 and 1")
+    from sklearn.metrics import silhouette_score  # imported on use: it is slow to import and only the scan needs it
+
     total = float(((x - x.mean(0)) ** 2).sum())
     rows = {name: np.full(len(ks), np.nan) for name in (
         "classifiability", "within_total_variance_ratio", "silhouette", "bic", "aic", "split_half_stability", "bootstrap_stability")}
