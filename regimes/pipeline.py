@@ -70,8 +70,14 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
     d, a = cfg.data, cfg.anomalies
     ds = data.open_inputs(d.paths)
     field = data.standardise(data.pick_variable(ds, d.variable), ds, d.chunk_days)
-    data.segment_starts(field["time"])  # refuses unsorted or duplicated time steps
+    step = data.typical_step(field["time"])  # refuses unsorted or duplicated time steps
     field = data.select(field, d.lat, d.lon, d.level, d.period)
+    gaps = data.describe_gaps(field["time"], step)
+    if gaps:
+        log.info(gaps)
+    # the analysis works in blocks fixed by the field's size, not by data.chunk_days, so that
+    # sums over time (and so every result) are the same bit for bit whatever the read chunks
+    field = field.chunk({"time": block_rows(field.sizes["time"], field.size // field.sizes["time"])})
     kind = data.time_step_kind(field["time"]) if a.climatology == "auto" else a.climatology
     basis, coefficients = anomalies.climatology_coefficients(field, kind, a.harmonics, a.base_period)
     # named point: the missing-value census and the climatology fit share one read of the field
@@ -91,12 +97,12 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
     if a.detrend:
         anomaly, _ = anomalies.detrend(anomaly)
     stacked, raw = layout.stack(anomaly), layout.stack(field.sel(time=anomaly["time"]))
-    rows = max(1, min(BLOCK_BYTES // (4 * stacked.sizes["feature"]), -(-stacked.sizes["sample"] // 4)))
+    rows = block_rows(stacked.sizes["sample"], stacked.sizes["feature"])
     stacked, raw = stacked.chunk({"sample": rows}), raw.chunk({"sample": rows})
     if 2 * stacked.size * 4 < MEMORY_BUDGET_BYTES:
         stacked, raw = dask.persist(stacked, raw)  # named point: the selected anomalies and field fit in memory (one read)
     time_axis = anomaly["time"]
-    segment_start = data.segment_starts(time_axis)
+    segment_start = data.segment_starts(time_axis, step)
     summary = {
         "files": ds.attrs["input_files"],
         "days": int(time_axis.size),
@@ -118,6 +124,11 @@ def prepare(cfg: SimpleNamespace) -> Prepared:
         season_year=data.season_year(time_axis, d.months).values,
         summary=summary,
     )
+
+
+def block_rows(samples: int, features: int) -> int:
+    """Samples per analysis block: at most :data:`BLOCK_BYTES` of float32 and at least four blocks."""
+    return max(1, min(BLOCK_BYTES // (4 * features), -(-samples // 4)))
 
 
 def missing_census(field: xr.DataArray) -> tuple[xr.DataArray, xr.DataArray]:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import subprocess
 import sys
 import tomllib
@@ -18,10 +19,19 @@ LAT = np.arange(30.0, 71.0, 10.0)
 LON = np.arange(-40.0, 21.0, 10.0)
 
 
+CHECKOUT = Path(__file__).resolve().parents[1]
+
+
+def checkout_env() -> dict:
+    """Environment in which ``python -m regimes`` imports this checkout, whatever is installed."""
+    return {**os.environ, "PYTHONPATH": os.pathsep.join([str(CHECKOUT), os.environ.get("PYTHONPATH", "")])}
+
+
 def regimes_cli(*args, cwd):
     return subprocess.run(
         [sys.executable, "-m", "regimes", *map(str, args)],
         cwd=cwd,
+        env=checkout_env(),
         capture_output=True,
         text=True,
         timeout=300,
