@@ -89,11 +89,11 @@ def check_folder(folder: str | Path, overwrite: bool, inputs: list[str]) -> Path
     folder = Path(folder).resolve()
     if folder.exists() and not folder.is_dir():
         raise UserError(f"output folder '{folder}' is an existing file; choose another output.dir")
+    for path in inputs:
+        if folder in Path(path).resolve().parents:
+            raise UserError(f"output folder '{folder}' contains the input file '{path}'; choose an output folder apart from the inputs")
     if folder.exists() and any(folder.iterdir()) and not overwrite:
         raise UserError(f"output folder '{folder}' already exists; pass --overwrite or choose another output folder")
-    for path in inputs:
-        if Path(path).resolve().parent == folder or folder in Path(path).resolve().parents:
-            raise UserError(f"output folder '{folder}' contains the input file '{path}'; choose an output folder apart from the inputs")
     return folder
 
 
