@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import re
+
 import netCDF4
 import numpy as np
 import pytest
@@ -62,7 +64,7 @@ def test_intact_model_loads(model_file):
         ("one centroid value changed", "fails its checksum"),
         ("one EOF value changed by a rounding error", "fails its checksum"),
         ("checksum removed", "fails its checksum"),
-        ("another format version", f"), expected {FORMAT_VERSION}; refit the model"),
+        ("another format version", rf"has format version \D*{FORMAT_VERSION + 1}\D*, expected {FORMAT_VERSION}; refit"),
         ("not NetCDF", "cannot be read"),
         ("missing", "cannot be read"),
     ],
@@ -72,5 +74,5 @@ def test_damaged_model_is_refused_in_one_line(model_file, tmp_path, how, answer)
     with pytest.raises(UserError) as err:
         RegimeModel.load(path)
     message = str(err.value)
-    assert answer in message and str(path) in message
+    assert re.search(answer, message) and f"model file '{path}'" in message
     assert "\n" not in message
