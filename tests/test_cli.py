@@ -159,3 +159,52 @@ def test_init_writes_valid_config_and_refuses_to_overwrite(inputs, tmp_path):
     replaced = regimes_cli("init", path, "--overwrite", cwd=tmp_path)
     assert replaced.returncode == 0, replaced.stderr
     assert tomllib.loads(path.read_text()) == tomllib.loads(text)
+
+
+# A planted bug: an internal function raises RuntimeError, then ``regimes`` runs as usual.
+PLANTED_BUG = """
+import runpy, sys
+import regimes.{module}
+def broken(*args, **kwargs):
+    raise RuntimeError("planted bug")
+regimes.{module}.{function} = broken
+sys.argv = ["regimes", *sys.argv[1:]]
+runpy.run_module("regimes", run_name="__main__")
+"""
+
+
+def test_a_bug_keeps_its_traceback_and_exits_1(inputs, tmp_path):
+    cfg = tmp_path / "job.toml"
+    cfg.write_text(job_text(inputs["good"]))
+    result = subprocess.run(
+        [sys.executable, "-c", PLANTED_BUG.format(module="data", function="open_inputs"), "run", str(cfg)],
+        cwd=tmp_path, env=checkout_env(), capture_output=True, text=True, timeout=300,
+    )
+    # an uncaught exception: Python prints the traceback and exits with status 1 (Python documentation, sys.exit)
+    assert result.returncode == 1, result.stderr
+    assert "Traceback (most recent call last)" in result.stderr
+    assert result.stderr.splitlines()[-1] == "RuntimeError: planted bug"
+    assert "regimes: error" not in result.stderr
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["job.toml"]
+
+
+@pytest.mark.parametrize(
+    "argv, module, function",
+    [(["scan", "{job}"], "data", "open_inputs"), (["init", "{folder}/new.toml"], "config", "reference_text")],
+    ids=["scan", "init"],
+)
+def test_a_bug_is_not_turned_into_a_user_error(inputs, tmp_path, monkeypatch, argv, module, function):
+    """In every command, only UserError becomes the one-line answer; anything else propagates."""
+    import importlib
+
+    from regimes import cli
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("planted bug")
+
+    monkeypatch.setattr(importlib.import_module(f"regimes.{module}"), function, broken)
+    cfg = tmp_path / "job.toml"
+    cfg.write_text(job_text(inputs["good"]))
+    with pytest.raises(RuntimeError, match="planted bug"):
+        cli.main([a.replace("{job}", str(cfg)).replace("{folder}", str(tmp_path)) for a in argv])
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["job.toml"]
