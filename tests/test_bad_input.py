@@ -1,4 +1,4 @@
-"""The README table "When the input is wrong", one test per row and in the same order.
+"""The README table "When the input is wrong": a test for every row, named in the table.
 
 Refused inputs run the command in this process through ``regimes.cli.main``
 and check the answer: exit status 2, exactly one line on standard error that
@@ -138,7 +138,7 @@ def existing_config(folder: Path) -> None:
 
 CODE = "__import__('os').system('touch evaluated')"
 
-# Row names are those of the README table; keep the same order.
+# Row names are those named in the README table (test_readme_table_names_every_row_and_existing_tests).
 REFUSED = {
     # input files
     "missing file": Refusal(r"input file '\S*absent\.nc' not found; check data\.paths", paths="absent.nc"),
@@ -423,3 +423,13 @@ def test_scattered_missing_days_dropped_when_asked(inputs, tmp_path, caplog):
     # the dropped days are gaps: the days after them start new runs of consecutive days
     assert labels["segment_start"].sel(time=["1981-02-12", "1981-10-29"]).values.tolist() == [1, 1]
     assert int(labels["segment_start"].sum()) == 3
+
+
+def test_readme_table_names_every_row_and_existing_tests():
+    """The README table and this module stay in step: every refused row is named once, and every test named exists."""
+    readme = (Path(__file__).parents[1] / "README.md").read_text(encoding="utf-8")
+    table = readme.split("## When the input is wrong", 1)[1].split("\n## ", 1)[0]
+    assert sorted(re.findall(r"`refused\[(.+?)\]`", table)) == sorted(REFUSED)
+    tests = Path(__file__).parent
+    for module, name in re.findall(r"`(test_\w+\.py)::(test_\w+)`", table):
+        assert re.search(rf"^def {name}\(", (tests / module).read_text(encoding="utf-8"), re.MULTILINE), f"{module}::{name}"
