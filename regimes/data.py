@@ -84,7 +84,15 @@ def _open_one(path: str) -> xr.Dataset:
     try:
         _check_classic_complete(path)
         return xr.open_dataset(path, engine="netcdf4", chunks={}, decode_times=xr.coders.CFDatetimeCoder(use_cftime=None))
-    except (OSError, ValueError, RuntimeError, KeyError, IndexError, TypeError) as err:
+    except ValueError as err:
+        if "decode time" in str(err):
+            reason = str(err).split(" Try ")[0].rstrip(".")  # without xarray's advice on its own options
+            raise UserError(
+                f"input file '{path}' has a time axis that cannot be decoded ({reason}); give CF time units such as "
+                "'days since 1981-01-01 00:00:00' and a CF calendar"
+            ) from None
+        raise UserError(f"input file '{path}' cannot be read as NetCDF ({err}); check that it is a complete NetCDF file") from None
+    except (OSError, RuntimeError, KeyError, IndexError, TypeError) as err:
         reason = getattr(err, "strerror", None) or err
         raise UserError(f"input file '{path}' cannot be read as NetCDF ({reason}); check that it is a complete NetCDF file") from None
 

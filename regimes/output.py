@@ -89,6 +89,9 @@ def check_folder(folder: str | Path, overwrite: bool, inputs: list[str]) -> Path
     folder = Path(folder).resolve()
     if folder.exists() and not folder.is_dir():
         raise UserError(f"output folder '{folder}' is an existing file; choose another output.dir")
+    existing = next(p for p in (folder, *folder.parents) if p.exists())
+    if not existing.is_dir():
+        raise UserError(f"output folder '{folder}' cannot be made: '{existing}' is a file; choose another output.dir")
     for path in inputs:
         if folder in Path(path).resolve().parents:
             raise UserError(f"output folder '{folder}' contains the input file '{path}'; choose an output folder apart from the inputs")

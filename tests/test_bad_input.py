@@ -19,6 +19,7 @@ from pathlib import Path
 from typing import Callable
 
 import cftime
+import netCDF4
 import numpy as np
 import pytest
 import xarray as xr
@@ -84,6 +85,9 @@ def inputs(tmp_path_factory):
     )
     write(curvilinear, "curvilinear.nc")
     write(ds.isel(time=0, drop=True), "no_time.nc")
+    write(ds, "bad_time_units.nc")
+    with netCDF4.Dataset(folder / "bad_time_units.nc", "a") as nc:
+        nc["time"].units = "fortnights since the thaw"
 
     t = ds["time"].values.copy()
     t[[100, 101]] = t[[101, 100]]
@@ -156,6 +160,10 @@ REFUSED = {
         r"variable 'psl' has no coordinate identifiable as lat .*coordinates present: time, y, x", paths="{inputs}/anonymous_axes.nc"
     ),
     "2-D latitude and longitude": Refusal(r"2-D latitude/longitude; .*regrid", paths="{inputs}/curvilinear.nc"),
+    "time units that cannot be decoded": Refusal(
+        r"input file '\S*bad_time_units\.nc' has a time axis that cannot be decoded \(unable to decode time units 'fortnights since the thaw'",
+        paths="{inputs}/bad_time_units.nc",
+    ),
     "no time axis": Refusal(r"no coordinate identifiable as time", paths="{inputs}/no_time.nc"),
     "time not increasing": Refusal(r"time axis goes back from 1981-04-12 to 1981-04-11 at time step 102", paths="{inputs}/unsorted.nc"),
     "repeated time": Refusal(r"time 1981-07-19 appears twice \(time steps 200 and 201\)", paths="{inputs}/repeated.nc"),
@@ -203,6 +211,7 @@ REFUSED = {
         r"output folder '\S*inputs\S*' contains the input file", {"output": {"dir": "{inputs}"}}, argv=("run", "{job}", "--overwrite")
     ),
     "output folder that is an input file": Refusal(r"output folder '\S*good\.nc' is an existing file", {"output": {"dir": "{inputs}/good.nc"}}),
+    "output folder inside a file": Refusal(r"output folder '\S*good\.nc/out' cannot be made: '\S*good\.nc' is a file", {"output": {"dir": "{inputs}/good.nc/out"}}),
     # regimes scan
     "scan: bad --k": Refusal(r"--k '9-3': expected distinct integers >= 2", argv=("scan", "{job}", "--k", "9-3")),
     "scan: negative --surrogates": Refusal(r"--surrogates -1: expected a number >= 0", argv=("scan", "{job}", "--surrogates", "-1")),
