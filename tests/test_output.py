@@ -73,7 +73,7 @@ write = xr.Dataset.to_netcdf
 def slow(self, path, *args, **kwargs):
     result = write(self, path, *args, **kwargs)
     print(f"test: wrote {path}", file=sys.stderr, flush=True)
-    time.sleep(2)
+    time.sleep(0.5)
     return result
 xr.Dataset.to_netcdf = slow
 sys.argv = ["regimes", *sys.argv[1:]]
