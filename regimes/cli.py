@@ -1,19 +1,26 @@
 """Command line: ``regimes run``, ``scan``, ``assign``, ``compare`` and ``init``.
 
-User errors (:class:`~regimes.errors.UserError`) end with one line on
-standard error and exit status 2; anything else is a bug and keeps its
-traceback (exit status 1).
+User errors (:class:`~regimes.errors.UserError`, and mistakes in the command
+line itself) end with one line on standard error and exit status 2; anything
+else is a bug and keeps its traceback (exit status 1). SIGINT and SIGTERM end
+a command cleanly: unfinished files are removed on the way out and the exit
+status is 128 + the signal number (130, 143; common practice).
 """
 
 from __future__ import annotations
 
 import argparse
+import contextlib
 import logging
+import signal
 import sys
+import threading
 from pathlib import Path
 
-from . import config
+from . import config, output
 from .errors import UserError
+
+STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM)
 
 STARTER = {
     "data": {"paths": ["data/*.nc"], "variable": "psl", "lat": [20.0, 80.0], "lon": [-90.0, 30.0], "months": [12, 1, 2]},
@@ -84,14 +91,26 @@ def _compare(args) -> None:
 
 def _init(args) -> None:
     path = Path(args.path)
+    if path.is_dir():
+        raise UserError(f"'{path}' is a folder; give the name of the config file to write, e.g. {path / 'regimes.toml'}")
     if path.exists() and not args.overwrite:
         raise UserError(f"'{path}' already exists; pass --overwrite or give another file name")
-    path.write_text(config.reference_text(STARTER), encoding="utf-8")
+    if not path.parent.is_dir():
+        raise UserError(f"folder '{path.parent}' does not exist; create it first or give another file name")
+    output.write_text(config.reference_text(STARTER), path)
     print(f"wrote a starter config to {path}; edit [data] paths and variable, then: regimes run {path}")
 
 
+class _Parser(argparse.ArgumentParser):
+    """An argument parser whose usage errors end like every user error: one line, exit status 2."""
+
+    def error(self, message: str):
+        print(f"regimes: error: {message}; see '{self.prog} --help'", file=sys.stderr)
+        sys.exit(2)
+
+
 def parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="regimes", description="Classify gridded fields into recurring regimes.")
+    p = _Parser(prog="regimes", description="Classify gridded fields into recurring regimes.")
     p.add_argument("--quiet", action="store_true", help="log warnings only")
     sub = p.add_subparsers(dest="command", required=True)
     run = sub.add_parser("run", help="run the job described by a config file")
@@ -129,6 +148,39 @@ def parser() -> argparse.ArgumentParser:
     return p
 
 
+class Interrupted(KeyboardInterrupt):
+    """SIGINT or SIGTERM arrived; raised in the main thread so that unfinished files are removed on the way out."""
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = signum
+
+
+def _interrupt(signum, frame):
+    raise Interrupted(signum)
+
+
+@contextlib.contextmanager
+def _stop_signals_raise():
+    """Within the block, SIGINT and SIGTERM raise :class:`Interrupted` (main thread only)."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = {s: signal.getsignal(s) for s in STOP_SIGNALS}
+    for s in STOP_SIGNALS:
+        signal.signal(s, _interrupt)
+    try:
+        yield
+    finally:
+        for s, handler in previous.items():
+            signal.signal(s, signal.SIG_DFL if handler is None else handler)
+
+
+def one_line(message: object) -> str:
+    """A message on one line (continuation lines joined by '; ')."""
+    return "; ".join(part.strip() for part in str(message).splitlines() if part.strip())
+
+
 def main(argv: list[str] | None = None) -> int:
     args = parser().parse_args(argv)
     logging.basicConfig(
@@ -137,10 +189,15 @@ def main(argv: list[str] | None = None) -> int:
         stream=sys.stderr,
     )
     try:
-        args.func(args)
+        with _stop_signals_raise():
+            args.func(args)
     except UserError as err:
-        print(f"regimes: error: {err}", file=sys.stderr)
+        print(f"regimes: error: {one_line(err)}", file=sys.stderr)
         return 2
+    except KeyboardInterrupt as err:
+        signum = getattr(err, "signum", signal.SIGINT)
+        print(f"regimes: interrupted by {signal.Signals(signum).name}; unfinished files were removed", file=sys.stderr)
+        return 128 + signum
     return 0
 
 

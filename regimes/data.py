@@ -36,7 +36,8 @@ def expand_paths(patterns: list[str]) -> list[str]:
     Raises
     ------
     UserError
-        If a plain file name does not exist or a pattern matches nothing.
+        If a plain file name does not exist, a pattern matches nothing, or a
+        name (or a match) is a folder.
     """
     files: list[str] = []
     for pattern in patterns:
@@ -45,11 +46,38 @@ def expand_paths(patterns: list[str]) -> list[str]:
             if not found:
                 raise UserError(f"input pattern '{pattern}' matches no file; check data.paths")
             files.extend(found)
-        elif not Path(pattern).is_file():
+        elif not Path(pattern).exists():
             raise UserError(f"input file '{pattern}' not found; check data.paths")
         else:
             files.append(pattern)
+    for name in files:
+        if Path(name).is_dir():
+            raise UserError(f"input '{name}' is a folder, not a file; give file names or a pattern such as '{Path(name) / '*.nc'}' in data.paths")
     return list(dict.fromkeys(str(Path(f).resolve()) for f in files))
+
+
+_CLASSIC_MAGIC = (b"CDF\x01", b"CDF\x02")
+
+
+def _check_classic_complete(path: str) -> None:
+    """Refuse a classic-format (NetCDF-3) file whose variables end past the end of the file.
+
+    The netCDF library reads the missing part of a truncated classic file as
+    zeros without complaint (HDF5-based NetCDF-4 files are checked by the
+    library itself). scipy's reader of the classic format maps the file and
+    lays each variable over it, which fails when the file is too short; no
+    data are read.
+    """
+    with open(path, "rb") as f:
+        if f.read(4) not in _CLASSIC_MAGIC:
+            return
+    from scipy.io import netcdf_file
+
+    try:
+        with netcdf_file(path, mmap=True):
+            pass
+    except (ValueError, TypeError, OSError, IndexError):
+        raise UserError(f"input file '{path}' is truncated or damaged (its variables end past the end of the file); copy or download it again") from None
 
 
 def _open_one(path: str, chunk_days: int) -> xr.Dataset:
@@ -60,11 +88,50 @@ def _open_one(path: str, chunk_days: int) -> xr.Dataset:
     would otherwise be one chunk: the whole field at once).
     """
     try:
+        _check_classic_complete(path)
         ds = xr.open_dataset(path, engine="netcdf4", chunks=None, decode_times=xr.coders.CFDatetimeCoder(use_cftime=None))
-    except (OSError, ValueError, RuntimeError, KeyError, IndexError, TypeError) as err:
-        raise UserError(f"input file '{path}' cannot be read as NetCDF ({err}); check the file") from None
+    except ValueError as err:
+        if "decode time" in str(err):
+            reason = str(err).split(" Try ")[0].rstrip(".")  # without xarray's advice on its own options
+            raise UserError(
+                f"input file '{path}' has a time axis that cannot be decoded ({reason}); give CF time units such as "
+                "'days since 1981-01-01 00:00:00' and a CF calendar"
+            ) from None
+        raise UserError(f"input file '{path}' cannot be read as NetCDF ({err}); check that it is a complete NetCDF file") from None
+    except (OSError, RuntimeError, KeyError, IndexError, TypeError) as err:
+        reason = getattr(err, "strerror", None) or err
+        raise UserError(f"input file '{path}' cannot be read as NetCDF ({reason}); check that it is a complete NetCDF file") from None
     time_dims = {name for name in ds.dims if name in ds.coords and _is_time(ds[name])}
     return ds.chunk({name: (chunk_days if name in time_dims else -1) for name in ds.dims})
+
+
+def _mismatch(parts: list[xr.Dataset], files: list[str]) -> str | None:
+    """The first file whose variables or grid differ from the first file's, described; None if all agree."""
+    first = parts[0]
+    for part, name in zip(parts[1:], files[1:]):
+        if set(part.data_vars) != set(first.data_vars):
+            return (
+                f"'{name}' holds {', '.join(map(str, part.data_vars)) or 'no variable'} but "
+                f"'{files[0]}' holds {', '.join(map(str, first.data_vars)) or 'no variable'}"
+            )
+        for dim in first.dims:
+            if dim in first.coords and not _is_time(first[dim]) and (
+                dim not in part.coords or not np.array_equal(part[dim].values, first[dim].values)
+            ):
+                return f"'{name}' has another {dim} axis than '{files[0]}'"
+    spans = []
+    for part, name in zip(parts, files):
+        times = [part[d] for d in part.dims if d in part.coords and _is_time(part[d]) and part[d].size]
+        if times:
+            spans.append((times[0].values.min(), times[0].values.max(), name))
+    try:
+        spans.sort(key=lambda span: span[0])
+    except TypeError:
+        return "their time axes are in different calendars"
+    for (_, end, name), (start, _, later) in zip(spans, spans[1:]):
+        if start <= end:
+            return f"the periods of '{name}' and '{later}' overlap (both hold {format_time(start)})"
+    return None
 
 
 def open_inputs(patterns: list[str], chunk_days: int = 365) -> xr.Dataset:
@@ -92,8 +159,8 @@ def open_inputs(patterns: list[str], chunk_days: int = 365) -> xr.Dataset:
             ds = xr.combine_by_coords(parts, combine_attrs="drop_conflicts", join="exact", data_vars="minimal", coords="minimal", compat="override")
         except (ValueError, KeyError) as err:
             raise UserError(
-                f"input files {files[0]} ... {files[-1]} cannot be combined into one dataset ({err}); "
-                "give files of one variable on one grid"
+                f"input files cannot be combined into one dataset: {_mismatch(parts, files) or err}; "
+                "give files of the same variables on one grid, each covering its own period"
             ) from None
     ds.attrs["input_files"] = files
     return ds
@@ -353,31 +420,69 @@ def day_numbers(time: xr.DataArray) -> np.ndarray:
     return np.asarray(cftime.date2num(list(values), units, calendar=first.calendar), dtype=float)
 
 
-def segment_starts(time: xr.DataArray) -> np.ndarray:
-    """Boolean mask: True where a run of consecutive time steps begins.
+def format_time(value) -> str:
+    """A time step as ``YYYY-MM-DD``, with the time of day when it is not midnight."""
+    text = str(value).replace("T", " ")[:19]
+    return text[:10] if text.endswith("00:00:00") else text
 
-    Two steps are consecutive when they are at most 1.5 typical steps apart
-    (typical = the median spacing), so a season boundary or a gap in the files
-    starts a new segment.
+
+def typical_step(time: xr.DataArray) -> float:
+    """The median spacing of a time axis in days; refuses repeated or decreasing time steps.
+
+    Raises
+    ------
+    UserError
+        Naming the first repeated or out-of-order time step and its position.
     """
     days = day_numbers(time)
+    step = np.diff(days)
+    bad = np.flatnonzero(step <= 0)
+    if bad.size:
+        i = int(bad[0]) + 1
+        here, before = format_time(time.values[i]), format_time(time.values[i - 1])
+        what = f"time {here} appears twice (time steps {i} and {i + 1})" if step[i - 1] == 0 else (
+            f"time axis goes back from {before} to {here} at time step {i + 1}"
+        )
+        raise UserError(f"{what}; {bad.size} repeated or out-of-order time step(s) in all; remove repeated or unsorted time steps from the inputs")
+    return float(np.median(step)) if step.size else 1.0
+
+
+def segment_starts(time: xr.DataArray, step: float | None = None) -> np.ndarray:
+    """Boolean mask: True where a run of consecutive time steps begins.
+
+    Two steps are consecutive when they are at most 1.5 typical steps apart,
+    so a season boundary or a gap in the files starts a new segment.
+
+    Parameters
+    ----------
+    time : xarray.DataArray
+        Time axis, increasing.
+    step : float, optional
+        Typical step in days; by default the median spacing of ``time``. Give
+        the step of the whole input when ``time`` has been thinned (seasons
+        cut, days dropped), so that every missing step still breaks a segment.
+    """
+    days = day_numbers(time)
+    typical = typical_step(time) if step is None else step
     starts = np.ones(days.size, dtype=bool)
-    if days.size > 1:
-        step = np.diff(days)
-        if np.any(step <= 0):
-            first = int(np.flatnonzero(step <= 0)[0])
-            raise UserError(
-                f"time axis is not increasing at {time.values[first + 1]} (after {time.values[first]}); "
-                "remove duplicate or unsorted time steps from the inputs"
-            )
-        starts[1:] = step > 1.5 * np.median(step)
+    starts[1:] = np.diff(days) > 1.5 * typical
     return starts
+
+
+def describe_gaps(time: xr.DataArray, step: float) -> str | None:
+    """One sentence on the gaps of a time axis (steps missing between its first and last time), or None."""
+    starts = segment_starts(time, step)[1:]
+    if not starts.any():
+        return None
+    days = np.diff(day_numbers(time))[starts]
+    first = int(np.flatnonzero(starts)[0])
+    missing = int(np.round(days / step - 1).sum())
+    return (
+        f"the time axis has {int(starts.sum())} gap(s), about {missing} time step(s) missing in all, the first after "
+        f"{format_time(time.values[first])} (next {format_time(time.values[first + 1])}); no episode or transition spans a gap"
+    )
 
 
 def time_step_kind(time: xr.DataArray) -> str:
     """'daily' or 'monthly', from the median spacing of the time axis."""
-    days = day_numbers(time)
-    if days.size < 2:
-        return "daily"
-    step = float(np.median(np.diff(days)))
-    return "monthly" if 27 <= step <= 32 else "daily"
+    return "monthly" if 27 <= typical_step(time) <= 32 else "daily"

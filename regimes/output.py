@@ -1,16 +1,20 @@
 """Writing results: CF-1.8 attributes, provenance, atomic files, the output folder.
 
 Every file is written under a temporary name in the target folder and
-renamed when complete, so an interrupted run leaves nothing under a final
-name (CF conventions 1.8 for the attributes: flag_values/flag_meanings in
-section 3.5, cell_methods in section 7.3, coordinates in chapter 4).
+renamed when complete; the files of one run are renamed together, once all
+of them are written, so an interrupted or failed run leaves nothing under a
+final name (CF conventions 1.8 for the attributes: flag_values/flag_meanings
+in section 3.5, cell_methods in section 7.3, coordinates in chapter 4).
 """
 
 from __future__ import annotations
 
+import contextlib
 import datetime as _dt
 import os
+import signal
 import sys
+import threading
 from importlib import metadata
 from pathlib import Path
 
@@ -85,11 +89,14 @@ def check_folder(folder: str | Path, overwrite: bool, inputs: list[str]) -> Path
     folder = Path(folder).resolve()
     if folder.exists() and not folder.is_dir():
         raise UserError(f"output folder '{folder}' is an existing file; choose another output.dir")
+    existing = next(p for p in (folder, *folder.parents) if p.exists())
+    if not existing.is_dir():
+        raise UserError(f"output folder '{folder}' cannot be made: '{existing}' is a file; choose another output.dir")
+    for path in inputs:
+        if folder in Path(path).resolve().parents:
+            raise UserError(f"output folder '{folder}' contains the input file '{path}'; choose an output folder apart from the inputs")
     if folder.exists() and any(folder.iterdir()) and not overwrite:
         raise UserError(f"output folder '{folder}' already exists; pass --overwrite or choose another output folder")
-    for path in inputs:
-        if Path(path).resolve().parent == folder or folder in Path(path).resolve().parents:
-            raise UserError(f"output folder '{folder}' contains the input file '{path}'; choose an output folder apart from the inputs")
     return folder
 
 
@@ -112,17 +119,53 @@ def _encoding(ds: xr.Dataset) -> dict:
     return enc
 
 
-def write(ds: xr.Dataset, path: Path) -> Path:
-    """Write ``ds`` to ``path`` atomically (temporary name in the same folder, then rename)."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
+@contextlib.contextmanager
+def _temporary(path: Path):
+    """A temporary name beside ``path``; whatever is left under it at the end is removed."""
     tmp = path.with_name(f".{path.name}.partial-{os.getpid()}")
     try:
-        ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=_encoding(ds))
-        os.replace(tmp, path)
+        yield tmp
     finally:
-        if tmp.exists():
-            tmp.unlink()
+        tmp.unlink(missing_ok=True)
+
+
+@contextlib.contextmanager
+def _stop_signals_deferred():
+    """Hold SIGINT and SIGTERM back while files are renamed, then deliver them (main thread only).
+
+    So a run ends with all of its files renamed or none of them.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    caught: list[int] = []
+    previous = {s: signal.getsignal(s) for s in (signal.SIGINT, signal.SIGTERM)}
+    for s in previous:
+        signal.signal(s, lambda signum, frame: caught.append(signum))
+    try:
+        yield
+    finally:
+        for s, handler in previous.items():
+            signal.signal(s, signal.SIG_DFL if handler is None else handler)
+        for s in caught[:1]:
+            signal.raise_signal(s)
+
+
+def _to_netcdf(ds: xr.Dataset, path: Path) -> None:
+    ds.to_netcdf(path, engine="netcdf4", format="NETCDF4", encoding=_encoding(ds))
+
+
+def write(ds: xr.Dataset, path: Path) -> Path:
+    """Write ``ds`` to ``path`` atomically (temporary name in the same folder, then rename)."""
+    return write_all({Path(path).name: ds}, Path(path).parent, overwrite=False)[0]
+
+
+def write_text(text: str, path: Path) -> Path:
+    """Write a text file atomically (temporary name in the same folder, then rename)."""
+    path = Path(path)
+    with _temporary(path) as tmp:
+        tmp.write_text(text, encoding="utf-8")
+        os.replace(tmp, path)
     return path
 
 
@@ -141,16 +184,31 @@ def write_bytes(content: bytes, path: Path) -> Path:
 
 
 def write_all(files: dict[str, xr.Dataset], folder: Path, overwrite: bool) -> list[Path]:
-    """Write several result files into ``folder``, each atomically.
+    """Write several result files into ``folder``: all under temporary names, then all renamed.
 
-    With ``overwrite``, result files of an earlier run that this run does not
-    produce are removed, so the folder holds one run only.
+    If anything fails or the run is interrupted before the renaming, the
+    temporary files are removed, and so is ``folder`` when this call created
+    it. With ``overwrite``, result files of an earlier run that
+    this run does not produce are removed, so the folder holds one run only.
     """
+    folder = Path(folder)
+    created = not folder.exists()
     folder.mkdir(parents=True, exist_ok=True)
-    written = [write(ds, folder / name) for name, ds in files.items()]
-    if overwrite:
-        for stale in folder.glob("*.nc"):
-            if stale.name not in files:
-                stale.unlink()
-    return written
-
+    try:
+        with contextlib.ExitStack() as temporaries:
+            written = {}
+            for name, ds in files.items():
+                written[name] = temporaries.enter_context(_temporary(folder / name))
+                _to_netcdf(ds, written[name])
+            with _stop_signals_deferred():
+                for name, tmp in written.items():
+                    os.replace(tmp, folder / name)
+                if overwrite:
+                    for stale in folder.glob("*.nc"):
+                        if stale.name not in files:
+                            stale.unlink()
+    except BaseException:
+        if created and not any(folder.iterdir()):
+            folder.rmdir()
+        raise
+    return [folder / name for name in files]

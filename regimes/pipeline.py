@@ -34,6 +34,10 @@ log = logging.getLogger("regimes")
 MEMORY_BUDGET_BYTES = 2 * 1024**3
 """The selected anomaly matrix is held in memory when it is smaller than this."""
 
+TIME_BLOCK_BYTES = 16 * 1024**2
+"""Size (float32) of the blocks of time steps the selected field is reduced in: fixed by the field's size,
+not by ``data.chunk_days``, and small, since a few blocks are in flight per core."""
+
 BLOCK_BYTES = 128 * 1024**2
 """Largest block of samples of the anomaly matrix (float32); there are at least four blocks so both cores work.
 Few large blocks keep dask's overhead low."""
@@ -79,8 +83,14 @@ def prepare(cfg: SimpleNamespace, model: RegimeModel | None = None) -> Prepared:
     d, a = cfg.data, cfg.anomalies
     ds = data.open_inputs(d.paths, d.chunk_days)
     field = data.standardise(data.pick_variable(ds, d.variable), ds, d.chunk_days)
-    data.segment_starts(field["time"])  # refuses unsorted or duplicated time steps
+    step = data.typical_step(field["time"])  # refuses unsorted or duplicated time steps
     field, kind, reference, required = _selected(cfg, field, model)
+    gaps = data.describe_gaps(field["time"], step)
+    if gaps:
+        log.info(gaps)
+    # the analysis works in blocks fixed by the field's size, not by data.chunk_days, so that
+    # sums over time (and so every result) are the same bit for bit whatever the read chunks
+    field = field.chunk({"time": time_block(field)})
 
     def climatology(f):
         if reference is not None:
@@ -106,13 +116,12 @@ def prepare(cfg: SimpleNamespace, model: RegimeModel | None = None) -> Prepared:
         anomaly, _ = anomalies.detrend(anomaly)
     members = anomaly["member"] if "member" in anomaly.dims else None
     stacked, raw = _stack(layout, anomaly), _stack(layout, field.sel(time=anomaly["time"]))
-    rows = max(1, min(BLOCK_BYTES // (4 * stacked.sizes["feature"]), -(-stacked.sizes["sample"] // 4)))
-    stacked = stacked.chunk({"sample": rows})
+    stacked = stacked.chunk({"sample": block_rows(stacked.sizes["sample"], stacked.sizes["feature"])})
     if stacked.size * 4 < MEMORY_BUDGET_BYTES:
         stacked = stacked.persist()  # named point: the selected anomalies fit in memory
     time_axis = anomaly["time"]
     copies = 1 if members is None else members.size
-    segment_start = np.tile(data.segment_starts(time_axis), copies)
+    segment_start = np.tile(data.segment_starts(time_axis, step), copies)
     summary = {
         "files": ds.attrs["input_files"],
         "days": int(time_axis.size),
@@ -170,6 +179,16 @@ def _stack(layout: Layout, field: xr.DataArray) -> xr.DataArray:
     if "member" not in field.dims:
         return layout.stack(field)
     return xr.concat([layout.stack(field.isel(member=i, drop=True)) for i in range(field.sizes["member"])], "sample")
+
+
+def time_block(field: xr.DataArray) -> int:
+    """Time steps per block of the field: :data:`TIME_BLOCK_BYTES` of float32."""
+    return max(1, TIME_BLOCK_BYTES // (4 * (field.size // field.sizes["time"])))
+
+
+def block_rows(samples: int, features: int) -> int:
+    """Samples per analysis block: at most :data:`BLOCK_BYTES` of float32 and at least four blocks."""
+    return max(1, min(BLOCK_BYTES // (4 * features), -(-samples // 4)))
 
 
 def missing_census(field: xr.DataArray) -> tuple[xr.DataArray, xr.DataArray]:

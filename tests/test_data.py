@@ -410,3 +410,24 @@ def test_select_months_none_selected():
     assert "data.months" in str(err.value)
     kept = data.select_months(da, [2])
     assert set(kept["time"].dt.month.values) == {2}
+
+
+@pytest.mark.parametrize("record_dimension", [False, True], ids=["fixed", "record"])
+@pytest.mark.parametrize("dtype", ["int16", "float32"])
+def test_complete_classic_files_are_read_and_truncated_ones_refused(tmp_path, record_dimension, dtype):
+    """The truncation check of classic (NetCDF-3) files passes complete files and refuses cut ones.
+
+    Odd grid sizes exercise the 4-byte padding of classic-format variables
+    (NetCDF classic format specification, Unidata), and int16 with a single
+    record variable the unpadded record case.
+    """
+    ds = small_planted().isel(lat=slice(0, 3), lon=slice(0, 5), time=slice(0, 31))
+    path = tmp_path / "classic.nc"
+    encoding = {"psl": {"dtype": dtype, "scale_factor": 0.5, "add_offset": 100000.0, "_FillValue": -32767} if dtype == "int16" else {"dtype": dtype}}
+    ds.to_netcdf(path, format="NETCDF3_64BIT", unlimited_dims=["time"] if record_dimension else None, encoding=encoding)
+    opened = data.open_inputs([str(path)])
+    np.testing.assert_allclose(opened["psl"].values, ds["psl"].values, atol=0.25)  # packing error <= scale_factor / 2
+    whole = path.read_bytes()
+    path.write_bytes(whole[:-8])
+    with pytest.raises(UserError, match="is truncated or damaged"):
+        data.open_inputs([str(path)])

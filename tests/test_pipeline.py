@@ -163,10 +163,40 @@ dir = "out"
     assert int(stats["transition_count"].sum()) == labels.sizes["time"] - starts
 
 
-def test_same_seed_same_results_whatever_the_chunking(planted, tmp_path):
+OUTPUT_FILES = ("labels.nc", "composites.nc", "statistics.nc", "eofs.nc", "model.nc")
+
+
+def same_attrs(a: dict, b: dict) -> bool:
+    return a.keys() == b.keys() and all(np.array_equal(a[k], b[k]) for k in a)
+
+
+def assert_identical_outputs(a, b, config_differs_in=None):
+    """Every variable of every output file identical, value for value, with the same attributes.
+
+    Only the global ``history`` attribute (it holds the time of the run) may
+    differ, and in the ``config`` attribute the line ``config_differs_in``.
+    """
+    for name in OUTPUT_FILES:
+        with xr.open_dataset(a / name, decode_times=False) as x, xr.open_dataset(b / name, decode_times=False) as y:
+            assert set(x.variables) == set(y.variables), name
+            for v in x.variables:
+                assert x[v].dims == y[v].dims and same_attrs(x[v].attrs, y[v].attrs), f"{name}: {v}"
+                np.testing.assert_array_equal(x[v].values, y[v].values, err_msg=f"{name}: {v}")
+            keys = (set(x.attrs) | set(y.attrs)) - {"history", "config"}
+            assert same_attrs({k: x.attrs.get(k) for k in keys}, {k: y.attrs.get(k) for k in keys}), name
+
+            def kept(text):
+                return [line for line in text.splitlines() if not (config_differs_in and line.startswith(config_differs_in))]
+
+            assert kept(x.attrs["config"]) == kept(y.attrs["config"]), name
+
+
+@pytest.mark.parametrize("method", ["kmeans", "gaussian-mixture"])
+def test_same_seed_same_results_whatever_the_chunking(planted, tmp_path, method):
+    """Two runs, and runs with other data.chunk_days, give identical labels and identical data in every file."""
     folder, _ = planted
-    results = []
-    for chunk in (90, 1000):
+    outputs = []
+    for i, chunk in enumerate((90, 90, 1000)):
         cfg, text = write_config(
             tmp_path,
             f"""
@@ -175,17 +205,20 @@ paths = ["{folder / 'field.nc'}"]
 variable = "psl"
 months = [1, 2, 3]
 chunk_days = {chunk}
+[eof]
+modes = 6
 [regimes]
-method = "gaussian-mixture"
+method = "{method}"
 k = 3
 restarts = 3
 [output]
-dir = "out{chunk}"
+dir = "unused"
 """,
         )
-        results.append(xr.open_dataset(pipeline.run(cfg, text) / "labels.nc"))
-    np.testing.assert_array_equal(results[0]["label"].values, results[1]["label"].values)
-    np.testing.assert_allclose(results[0]["probability"].values, results[1]["probability"].values, atol=1e-5)
+        outputs.append(pipeline.run(cfg, text, output_dir=str(tmp_path / f"run{i}")))
+    assert_identical_outputs(outputs[0], outputs[1])
+    for other in outputs[2:]:
+        assert_identical_outputs(outputs[0], other, config_differs_in="chunk_days")
 
 
 def test_monthly_data_get_a_calendar_month_climatology(tmp_path):

@@ -1,0 +1,126 @@
+"""Results are never half-written: failed and interrupted runs leave nothing under the final names."""
+
+from __future__ import annotations
+
+import signal
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+import xarray as xr
+from test_cli import checkout_env
+
+from regimes import output, synthetic
+
+
+def small_dataset(value: float = 1.0) -> xr.Dataset:
+    return xr.Dataset({"v": ("x", np.full(3, value, dtype=np.float32))}, coords={"x": np.arange(3.0)})
+
+
+def test_failure_while_writing_leaves_nothing(tmp_path, monkeypatch):
+    """The second of two files fails: the first is not renamed, no temporary is left, the new folder is removed."""
+    calls = []
+    original = output._to_netcdf
+
+    def failing(ds, path):
+        calls.append(path)
+        if len(calls) == 2:
+            raise OSError("disk full")
+        original(ds, path)
+
+    monkeypatch.setattr(output, "_to_netcdf", failing)
+    folder = tmp_path / "results"
+    with pytest.raises(OSError):
+        output.write_all({"a.nc": small_dataset(), "b.nc": small_dataset()}, folder, overwrite=False)
+    assert calls[0].parent == folder and calls[0].name != "a.nc"  # written under a temporary name
+    assert not folder.exists()
+
+
+def test_failure_keeps_an_earlier_run_whole(tmp_path, monkeypatch):
+    """With --overwrite, a failed run leaves the earlier results as they were."""
+    folder = tmp_path / "results"
+    output.write_all({"a.nc": small_dataset(1.0), "b.nc": small_dataset(1.0)}, folder, overwrite=False)
+    before = {p.name: p.read_bytes() for p in folder.iterdir()}
+
+    def failing(ds, path):
+        raise OSError("disk full")
+
+    monkeypatch.setattr(output, "_to_netcdf", failing)
+    with pytest.raises(OSError):
+        output.write_all({"a.nc": small_dataset(2.0), "b.nc": small_dataset(2.0)}, folder, overwrite=True)
+    assert {p.name: p.read_bytes() for p in folder.iterdir()} == before
+
+
+def test_write_replaces_whole_files(tmp_path):
+    path = output.write(small_dataset(3.0), tmp_path / "one.nc")
+    with xr.open_dataset(path) as ds:
+        assert ds["v"].values.tolist() == [3.0, 3.0, 3.0]
+    assert [p.name for p in tmp_path.iterdir()] == ["one.nc"]
+
+
+# --------------------------------------------------------------------------
+# interrupted runs (a real ``python -m regimes run`` in a subprocess)
+# --------------------------------------------------------------------------
+
+# Runs ``regimes`` with every NetCDF write followed by a pause, so that a signal
+# can be sent while the result files are being written (after one is complete).
+SLOW_WRITER = """
+import runpy, sys, time
+import xarray as xr
+write = xr.Dataset.to_netcdf
+def slow(self, path, *args, **kwargs):
+    result = write(self, path, *args, **kwargs)
+    print(f"test: wrote {path}", file=sys.stderr, flush=True)
+    time.sleep(0.5)
+    return result
+xr.Dataset.to_netcdf = slow
+sys.argv = ["regimes", *sys.argv[1:]]
+runpy.run_module("regimes", run_name="__main__")
+"""
+
+
+@pytest.fixture(scope="module")
+def jobs(tmp_path_factory):
+    """Input fields: one whose job runs for a few seconds (eight years, 400 k-means restarts), one small."""
+    folder = tmp_path_factory.mktemp("jobs")
+    big, _ = synthetic.planted_regimes(years=8, lat=np.arange(25.0, 76.0, 5.0), lon=np.arange(-80.0, 21.0, 5.0), k=4, seed=2)
+    synthetic.write_netcdf(big, folder / "big.nc")
+    small, _ = synthetic.planted_regimes(years=2, lat=np.arange(30.0, 71.0, 10.0), lon=np.arange(-40.0, 21.0, 10.0), k=3, seed=1)
+    synthetic.write_netcdf(small, folder / "small.nc")
+    return {
+        "computing": f'paths = "{folder / "big.nc"}"\n[regimes]\nk = 4\nrestarts = 400\n',
+        "writing": f'paths = "{folder / "small.nc"}"\n[regimes]\nk = 3\nrestarts = 3\n',
+    }
+
+
+@pytest.mark.parametrize("signum", [signal.SIGINT, signal.SIGTERM], ids=["SIGINT", "SIGTERM"])
+@pytest.mark.parametrize(
+    "phase, marker",
+    [("computing", "EOF analysis ..."), ("writing", "test: wrote")],  # while writing: after the second file
+    ids=["while computing", "while writing"],
+)
+def test_interrupted_run_leaves_nothing(jobs, tmp_path, signum, phase, marker):
+    """The signal is sent once the run is under way (a log line has appeared)."""
+    job = tmp_path / "job.toml"
+    job.write_text(f'[data]\nvariable = "psl"\n{jobs[phase]}[output]\ndir = "out"\n')
+    command = [sys.executable, "-m", "regimes"] if phase == "computing" else [sys.executable, "-c", SLOW_WRITER]
+    proc = subprocess.Popen([*command, "run", str(job)], cwd=tmp_path, env=checkout_env(), stderr=subprocess.PIPE, text=True)
+    seen = []
+    wanted = 1 if phase == "computing" else 2
+    try:
+        for line in proc.stderr:
+            seen.append(line)
+            if "".join(seen).count(marker) == wanted:
+                proc.send_signal(signum)
+                break
+        rest = proc.communicate(timeout=120)[1]
+    finally:
+        proc.kill()
+    assert "".join(seen).count(marker) == wanted, "".join(seen)
+    # exit status 128 + signal number: 130 for SIGINT, 143 for SIGTERM (common practice)
+    assert proc.returncode == 128 + signum, "".join(seen) + rest
+    assert rest.splitlines()[-1] == f"regimes: interrupted by {signal.Signals(signum).name}; unfinished files were removed"
+    assert "Traceback" not in rest
+    # nothing under the final names, no temporary file, and the output folder this run created is gone
+    assert sorted(p.name for p in tmp_path.rglob("*")) == ["job.toml"]
