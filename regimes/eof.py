@@ -85,15 +85,16 @@ class EOF:
         self.weights_ = weights
         w = weights.values
         stored = dsa.asarray(field.data)
-        x = stored.astype(np.float64)
-        mean, squares = dask.compute(x.mean(axis=0), (x**2).sum(axis=0))
+        # float64 sums of the stored values without float64 copies of them (einsum and sum cast as they go)
+        column_sum, squares = dask.compute(stored.sum(axis=0, dtype=np.float64), dsa.einsum("ij,ij->j", stored, stored, dtype=np.float64))
+        mean = column_sum / n
         total_variance = float((w**2 * (squares - n * mean**2)).sum() / (n - 1))
         if not total_variance > 0:
             raise UserError("the selected field does not vary in time (zero variance); check the variable, box and period")
         limit = min(n, p) if self.variance_fraction else min(self.modes, n, p)
         self.solver_ = self.solver if self.solver != "auto" else ("exact" if min(n, p) <= EXACT_LIMIT else "randomized")
         if self.solver_ == "exact":
-            values, vectors = self._exact((x - mean[None, :]) * w[None, :], n, p, limit)
+            values, vectors = self._exact((stored.astype(np.float64) - mean[None, :]) * w[None, :], n, p, limit)
         else:
             values, vectors = self._randomized(stored, mean, w, min(limit, 200))
         keep = min(self.modes, values.size)
@@ -172,9 +173,9 @@ class EOF:
         DataArray (sample, mode)
             Projections of the weighted, centred field on the EOFs (units: field units).
         """
-        w = self.weights_.values
-        x = (dsa.asarray(field.data).astype(np.float64) - self.mean_.values[None, :]) * w[None, :]
-        pcs = x @ self.components_.values.T
+        # (x - m) W E^T = x (W E^T) - m W E^T: no centred copy of the field
+        projector = self.weights_.values[:, None] * self.components_.values.T
+        pcs = dsa.asarray(field.data) @ projector - self.mean_.values @ projector
         return xr.DataArray(pcs, dims=("sample", "mode"), coords={"sample": field["sample"], "mode": self.components_["mode"]})
 
     def patterns(self) -> xr.DataArray:

@@ -34,7 +34,7 @@ log = logging.getLogger("regimes")
 MEMORY_BUDGET_BYTES = 2 * 1024**3
 """The selected anomaly matrix is held in memory when it is smaller than this."""
 
-TIME_BLOCK_BYTES = 16 * 1024**2
+TIME_BLOCK_BYTES = 4 * 1024**2
 """Size (float32) of the blocks of time steps the selected field is reduced in: fixed by the field's size,
 not by ``data.chunk_days``, and small, since a few blocks are in flight per core."""
 

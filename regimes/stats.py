@@ -147,13 +147,13 @@ def composite_sums(field: xr.DataArray, labels: np.ndarray, states: np.ndarray) 
     x = dsa.asarray(field.data)
     chunks = (x.chunks[0], (len(states),))
     ind = dsa.from_array(onehot, chunks=chunks)
-    x64 = x.astype(np.float64)
     dims = ("regime", "feature")
     return xr.Dataset(
         {
             "count": ("regime", onehot.sum(0)),
-            "sum": (dims, ind.T @ x64),
-            "sum_of_squares": (dims, ind.T @ (x64**2)),
+            # einsum casts as it goes: float64 sums without float64 copies of the field
+            "sum": (dims, dsa.einsum("ik,ij->kj", ind, x, dtype=np.float64)),
+            "sum_of_squares": (dims, dsa.einsum("ik,ij,ij->kj", ind, x, x, dtype=np.float64)),
         },
         coords={"regime": states},
     )
