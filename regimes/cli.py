@@ -1,4 +1,4 @@
-"""Command line: ``regimes run CONFIG``, ``regimes scan CONFIG`` and ``regimes init``.
+"""Command line: ``regimes run CONFIG``, ``regimes scan CONFIG``, ``regimes plot FOLDER`` and ``regimes init``.
 
 User errors (:class:`~regimes.errors.UserError`) end with one line on
 standard error and exit status 2; anything else is a bug and keeps its
@@ -62,6 +62,20 @@ def _scan(args) -> None:
     print(scan.table(table))
     print(table.attrs["recommendation"])
     print(f"wrote {folder / 'scan.nc'}")
+    if cfg.figures.draw:
+        from . import finished, report
+
+        with pipeline.stage("figures"):
+            report.draw_all(finished.open_folder(folder), cfg.figures)
+
+
+def _plot(args) -> None:
+    from . import finished, report
+
+    found = finished.open_folder(args.folder)
+    overrides = {"format": args.format, "dpi": args.dpi, "projection": args.projection, "colormap": args.colormap}
+    written = report.draw_all(found, config.figure_settings(found.config_text, overrides))
+    print(f"wrote {len(written)} files into {found.folder}")
 
 
 def _init(args) -> None:
@@ -90,6 +104,13 @@ def parser() -> argparse.ArgumentParser:
     sc.add_argument("--output", help="output folder (default: output.dir/scan)")
     sc.add_argument("--overwrite", action="store_true", help="allow writing into an existing output folder")
     sc.set_defaults(func=_scan)
+    plot = sub.add_parser("plot", help="redraw the figures and the report of a finished run or scan (no recomputing)")
+    plot.add_argument("folder", help="output folder of 'regimes run' or 'regimes scan'")
+    plot.add_argument("--format", choices=config.FIGURE_FORMATS, help="figure file format (default: the run's figures.format)")
+    plot.add_argument("--dpi", type=int, help="resolution of PNG figures (default: the run's figures.dpi)")
+    plot.add_argument("--projection", choices=config.PROJECTIONS, help="map projection (default: the run's figures.projection)")
+    plot.add_argument("--colormap", choices=config.COLORMAPS, help="diverging colour map of the maps (default: the run's figures.colormap)")
+    plot.set_defaults(func=_plot)
     init = sub.add_parser("init", help="write a starter config listing every key")
     init.add_argument("path", nargs="?", default="regimes.toml", help="file to write (default regimes.toml)")
     init.add_argument("--overwrite", action="store_true", help="replace an existing file")

@@ -8,6 +8,7 @@ section 3.5, cell_methods in section 7.3, coordinates in chapter 4).
 
 from __future__ import annotations
 
+import contextlib
 import datetime as _dt
 import os
 import sys
@@ -112,17 +113,32 @@ def _encoding(ds: xr.Dataset) -> dict:
     return enc
 
 
-def write(ds: xr.Dataset, path: Path) -> Path:
-    """Write ``ds`` to ``path`` atomically (temporary name in the same folder, then rename)."""
-    path = Path(path)
+@contextlib.contextmanager
+def _atomic(path: Path):
+    """Yield a temporary name beside ``path``; rename it to ``path`` when the block succeeds, remove it otherwise."""
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(f".{path.name}.partial-{os.getpid()}")
     try:
-        ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=_encoding(ds))
+        yield tmp
         os.replace(tmp, path)
     finally:
         if tmp.exists():
             tmp.unlink()
+
+
+def write(ds: xr.Dataset, path: Path) -> Path:
+    """Write ``ds`` to ``path`` atomically (temporary name in the same folder, then rename)."""
+    path = Path(path)
+    with _atomic(path) as tmp:
+        ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=_encoding(ds))
+    return path
+
+
+def write_bytes(content: bytes, path: Path) -> Path:
+    """Write ``content`` (a figure, a page) to ``path`` atomically."""
+    path = Path(path)
+    with _atomic(path) as tmp:
+        tmp.write_bytes(content)
     return path
 
 
