@@ -70,9 +70,11 @@ def _scan(args) -> None:
 
 
 def _plot(args) -> None:
-    from . import finished, report
+    from . import finished
 
     found = finished.open_folder(args.folder)
+    from . import report  # matplotlib and cartopy, once the folder is known to be finished
+
     overrides = {"format": args.format, "dpi": args.dpi, "projection": args.projection, "colormap": args.colormap}
     written = report.draw_all(found, config.figure_settings(found.config_text, overrides))
     print(f"wrote {len(written)} files into {found.folder}")

@@ -124,8 +124,13 @@ def _panel(ax):
     return ax
 
 
-def _grid_shape(n: int) -> tuple[int, int]:
+def _grid_shape(n: int, aspect: float = 0.7) -> tuple[int, int]:
+    """Rows and columns of ``n`` panels of height/width ``aspect``: wide maps in fewer columns."""
     cols = min(n, 3) if n != 4 else 2
+    if aspect < 0.3:
+        cols = 1
+    elif aspect < 0.45:
+        cols = min(cols, 2)
     return math.ceil(n / cols), cols
 
 
@@ -154,17 +159,20 @@ def _map_figure(fields: list[xr.DataArray], titles: list[str], units: str, what:
     factor, shown = display_units(units)
     fields = [f * factor for f in fields]
     levels = symmetric_levels(xr.concat(fields, "panel"), style.levels)
-    rows, cols = _grid_shape(len(fields))
-    panel_height = 0.85 * (WIDTH / cols) * min(max(maps.aspect(region, crs), 0.35), 1.1) + 0.5
-    head, foot = 0.45, 0.95
-    height = rows * panel_height + head + foot
+    shape = maps.aspect(region, crs)
+    rows, cols = _grid_shape(len(fields), shape)
+    left, right, wspace = 0.05, 0.985, 0.14
+    width = WIDTH * (right - left) / (cols + wspace * (cols - 1))  # of one panel, inches
+    tall = width * min(max(shape, 0.1), 1.2)
+    head, gap, foot = 0.75, 0.75, 1.05  # inches: headings; labels and title between rows; labels and colour bar
+    height = head + rows * tall + (rows - 1) * gap + foot
     fig = Figure(figsize=(WIDTH, height))
-    grid = fig.add_gridspec(rows, cols, left=0.05, right=0.985, top=1 - head / height, bottom=foot / height, wspace=0.14, hspace=0.18)
+    grid = fig.add_gridspec(rows, cols, left=left, right=right, top=1 - head / height, bottom=foot / height, wspace=wspace, hspace=gap / tall)
     axes = []
     for i, (field, title) in enumerate(zip(fields, titles)):
         ax = _panel(fig.add_subplot(grid[i // cols, i % cols], projection=crs))
         filled = maps.draw_field(ax, field, region, levels, matplotlib.colormaps[style.colormap])
-        ax.set_title(title, loc="left")
+        ax.set_title(title, loc="left", pad=18 if region.southern else 6)  # room for longitude labels on top
         axes.append(ax)
     bar = fig.colorbar(filled, cax=fig.add_axes((0.25, 0.42 / height, 0.5, 0.13 / height)), orientation="horizontal")
     bar.set_label(f"{what} ({shown})")
@@ -370,7 +378,7 @@ def timeline(run: Finished, style) -> Figure:
     strip[np.searchsorted(rows, years), offset] = lab["label"].values
     k = lab.sizes["regime"]
     colours = ["#ffffff", *regime_colours(k)]
-    fig = _figure(min(1.6 + 0.16 * rows.size, 12.0))
+    fig = _figure(min(2.2 + 0.16 * rows.size, 12.0))
     ax = _panel(fig.add_subplot())
     ax.imshow(strip, aspect="auto", interpolation="nearest", cmap=ListedColormap(colours), vmin=-0.5, vmax=k + 0.5,
               extent=(-0.5, strip.shape[1] - 0.5, rows[-1] + 0.5, rows[0] - 0.5))

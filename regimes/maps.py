@@ -45,6 +45,11 @@ class Region:
         return float((self.west + self.span / 2 + 180.0) % 360.0 - 180.0)
 
     @property
+    def southern(self) -> bool:
+        """Mostly south of the equator."""
+        return self.south + self.north < 0
+
+    @property
     def frame(self) -> ccrs.PlateCarree:
         """Plate carree frame centred on the region: its longitudes run -span/2..span/2 without a seam."""
         return ccrs.PlateCarree(central_longitude=self.centre)
@@ -86,7 +91,7 @@ def choose(region: Region, name: str = "auto") -> str:
 def projection(region: Region, name: str) -> ccrs.Projection:
     """The cartopy projection called ``name`` (one of :data:`regimes.config.PROJECTIONS` but ``auto``), centred on ``region``."""
     south, north, centre = region.south, region.north, region.centre
-    northern = south + north >= 0
+    northern = not region.southern
     if name == "polar-stereographic":
         pole = ccrs.NorthPolarStereo if northern else ccrs.SouthPolarStereo
         return pole(central_longitude=0.0 if region.full_circle else centre)
@@ -114,9 +119,9 @@ def _outline(region: Region, steps: int = 60) -> np.ndarray:
 
 def aspect(region: Region, crs: ccrs.Projection) -> float:
     """Height / width of the region drawn in ``crs``."""
-    xy = crs.transform_points(region.frame, *_outline(region).T)[:, :2]
     if region.full_circle and isinstance(crs, ccrs.Stereographic):
         return 1.0
+    xy = crs.transform_points(region.frame, *_outline(region).T)[:, :2]
     width, height = np.ptp(xy[:, 0]), np.ptp(xy[:, 1])
     return float(height / width) if width > 0 else 1.0
 
@@ -124,8 +129,8 @@ def aspect(region: Region, crs: ccrs.Projection) -> float:
 def frame_axes(ax, region: Region) -> None:
     """Set the extent and outline of a GeoAxes to ``region``, with labelled gridlines."""
     if region.full_circle and isinstance(ax.projection, ccrs.Stereographic):
-        edge = region.south if region.north > 0 else region.north
-        ax.set_extent([-180, 180, min(edge, 90.0), 90.0] if region.north > 0 else [-180, 180, -90.0, edge], ccrs.PlateCarree())
+        extent = [-180, 180, -90.0, region.north] if region.southern else [-180, 180, region.south, 90.0]
+        ax.set_extent(extent, ccrs.PlateCarree())
         theta = np.linspace(0, 2 * np.pi, 200)
         ax.set_boundary(mpath.Path(np.c_[np.cos(theta), np.sin(theta)] * 0.5 + 0.5), transform=ax.transAxes)
     else:
@@ -139,7 +144,8 @@ def frame_axes(ax, region: Region) -> None:
         linewidth=0.4, color="#7a7a7a", alpha=0.6, linestyle=(0, (2, 3)),
     )
     lines.n_steps = 30
-    lines.top_labels = lines.right_labels = False
+    lines.right_labels = False
+    lines.top_labels, lines.bottom_labels = region.southern, not region.southern  # longitudes on the equatorward edge
     lines.xlabel_style = lines.ylabel_style = {"size": 7, "color": "#404040"}
 
 

@@ -1,0 +1,63 @@
+"""Shared fixtures: a small finished run (with its figures and report) and a scan beside it."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from regimes import cli, config, pipeline, synthetic
+
+SMALL_LAT = np.arange(30.0, 71.0, 10.0)
+SMALL_LON = np.arange(-40.0, 21.0, 10.0)
+ROOT = Path(__file__).resolve().parents[1]
+
+
+@pytest.fixture(scope="session")
+def regimes_cli():
+    """Run ``python -m regimes ARGS`` in a folder, importing this checkout's package."""
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(ROOT), os.environ.get("PYTHONPATH", "")])}
+
+    def run(*args, cwd):
+        return subprocess.run([sys.executable, "-m", "regimes", *map(str, args)], cwd=cwd, env=env, capture_output=True, text=True, timeout=300)
+
+    return run
+
+
+@pytest.fixture(scope="module")
+def finished_run(tmp_path_factory):
+    """A finished run of four winters of planted regimes on a coarse grid, drawn by ``pipeline.run``, with a scan in out/scan.
+
+    Built once per test module (planted data from :mod:`regimes.synthetic`).
+    """
+    folder = tmp_path_factory.mktemp("finished")
+    data, _ = synthetic.planted_regimes(years=4, lat=SMALL_LAT, lon=SMALL_LON, k=3, seed=4)
+    synthetic.write_netcdf(data, folder / "psl.nc")
+    job = folder / "job.toml"
+    job.write_text(
+        """
+[data]
+paths = ["psl.nc"]
+variable = "psl"
+months = [12, 1, 2]
+[eof]
+modes = 4
+[regimes]
+k = 3
+restarts = 3
+names = ["zonal", "blocked", "ridge"]
+[figures]
+dpi = 80
+eof_modes = 3
+[output]
+dir = "out"
+"""
+    )
+    cfg, text = config.load(job)
+    out = pipeline.run(cfg, text)
+    assert cli.main(["--quiet", "scan", str(job), "--k", "2-3", "--surrogates", "3", "--restarts", "3"]) == 0
+    return out
