@@ -2,11 +2,6 @@
 
 from __future__ import annotations
 
-import os
-import subprocess
-import sys
-from pathlib import Path
-
 import numpy as np
 import pytest
 
@@ -14,18 +9,6 @@ from regimes import cli, config, pipeline, synthetic
 
 SMALL_LAT = np.arange(30.0, 71.0, 10.0)
 SMALL_LON = np.arange(-40.0, 21.0, 10.0)
-ROOT = Path(__file__).resolve().parents[1]
-
-
-@pytest.fixture(scope="session")
-def regimes_cli():
-    """Run ``python -m regimes ARGS`` in a folder, importing this checkout's package."""
-    env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(ROOT), os.environ.get("PYTHONPATH", "")])}
-
-    def run(*args, cwd):
-        return subprocess.run([sys.executable, "-m", "regimes", *map(str, args)], cwd=cwd, env=env, capture_output=True, text=True, timeout=300)
-
-    return run
 
 
 @pytest.fixture(scope="module")
