@@ -13,9 +13,11 @@ SMALL_LON = np.arange(-40.0, 21.0, 10.0)
 
 @pytest.fixture(scope="module")
 def finished_run(tmp_path_factory):
-    """A finished run of four winters of planted regimes on a coarse grid, drawn by ``pipeline.run``, with a scan in out/scan.
+    """A finished run of four winters of planted regimes on a coarse grid, with a scan in out/scan, drawn by ``pipeline.run``.
 
     Built once per test module (planted data from :mod:`regimes.synthetic`).
+    The scan comes first (``regimes scan`` draws its figure), then the run
+    into the same folder, so that its report includes the scan.
     """
     folder = tmp_path_factory.mktemp("finished")
     data, _ = synthetic.planted_regimes(years=4, lat=SMALL_LAT, lon=SMALL_LON, k=3, seed=4)
@@ -40,7 +42,7 @@ eof_modes = 3
 dir = "out"
 """
     )
-    cfg, text = config.load(job)
-    out = pipeline.run(cfg, text)
     assert cli.main(["--quiet", "scan", str(job), "--k", "2-3", "--surrogates", "3", "--restarts", "3"]) == 0
-    return out
+    assert (folder / "out" / "scan" / "scan_diagnostics.png").is_file()
+    cfg, text = config.load(job)
+    return pipeline.run(cfg, text, overwrite=True)

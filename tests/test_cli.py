@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import subprocess
 import sys
 import tomllib
@@ -18,10 +19,15 @@ LAT = np.arange(30.0, 71.0, 10.0)
 LON = np.arange(-40.0, 21.0, 10.0)
 
 
+ROOT = Path(__file__).resolve().parents[1]
+
+
 def regimes_cli(*args, cwd):
+    """``python -m regimes ARGS`` in ``cwd``, importing this checkout's package."""
     return subprocess.run(
         [sys.executable, "-m", "regimes", *map(str, args)],
         cwd=cwd,
+        env={**os.environ, "PYTHONPATH": os.pathsep.join([str(ROOT), os.environ.get("PYTHONPATH", "")])},
         capture_output=True,
         text=True,
         timeout=300,
@@ -39,11 +45,12 @@ def toml_value(value):
 
 
 def job_text(paths, **sections):
-    """A small job: few modes and restarts; extra keys as section={key: value}."""
+    """A small job: few modes and restarts, no figures (tests/test_figures.py draws them); extra keys as section={key: value}."""
     base = {
         "data": {"paths": str(paths), "variable": "psl"},
         "eof": {"modes": 4},
         "regimes": {"k": 3, "restarts": 3},
+        "figures": {"draw": False},
         "output": {"dir": "out"},
     }
     for name, keys in sections.items():

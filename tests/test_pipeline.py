@@ -44,6 +44,8 @@ modes = 8
 k = 4
 restarts = 20
 seed = 7
+[figures]
+draw = false
 [output]
 dir = "out-year"
 """,
@@ -140,6 +142,8 @@ months = [12, 1, 2]
 [regimes]
 k = 4
 restarts = 10
+[figures]
+draw = false
 [output]
 dir = "out"
 """,
@@ -179,6 +183,8 @@ chunk_days = {chunk}
 method = "gaussian-mixture"
 k = 3
 restarts = 3
+[figures]
+draw = false
 [output]
 dir = "out{chunk}"
 """,
@@ -205,6 +211,8 @@ modes = 3
 [regimes]
 k = 2
 restarts = 5
+[figures]
+draw = false
 [output]
 dir = "out"
 """,
