@@ -77,7 +77,7 @@ def _plot(args) -> None:
 
     overrides = {"format": args.format, "dpi": args.dpi, "projection": args.projection, "colormap": args.colormap}
     written = report.draw_all(found, config.figure_settings(found.config_text, overrides))
-    print(f"wrote {len(written)} files into {found.folder}")
+    print(f"wrote {len(written)} file{'s' if len(written) != 1 else ''} into {found.folder}")
 
 
 def _init(args) -> None:

@@ -14,7 +14,6 @@ import functools
 from pathlib import Path
 
 import cartopy
-import cartopy.crs as ccrs
 import numpy as np
 import shapely
 from cartopy.io import Downloader

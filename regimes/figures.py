@@ -9,7 +9,7 @@ the geometric duration law implied by the stored transition probabilities).
 Panels carry the label ``panel`` so that they can be counted.
 
 Colours: the anomaly maps use a ColorBrewer diverging scheme (colour-blind
-safe; Harrower & Brewer 2003, Cartogr. J. 40, 27-37), one symmetric scale
+safe; Harrower & Brewer 2003, Cartogr. J. 40, 27-37, from memory), one symmetric scale
 shared by all panels of a figure; regimes are told apart by Paul Tol's
 "muted" qualitative scheme (colour-blind safe; Tol 2021, SRON technical note
 SRON/EPS/TN/09-002, from memory).
@@ -337,7 +337,8 @@ def durations(run: Finished, style) -> Figure:
         law = np.where(d >= shortest, (1 - p) * p ** (d - shortest), 0.0)
         ax.plot(d, 100 * law, color="#222222", linewidth=1.0, label=f"geometric law, p = {p:.2f}")
         mean = float(st["mean_duration"].sel(regime=r))
-        ax.axvline(mean, color="#222222", linewidth=0.8, linestyle=":", label=f"mean {mean:.1f} d")
+        if np.isfinite(mean):  # no mean when min_duration_days leaves out every episode of the regime
+            ax.axvline(mean, color="#222222", linewidth=0.8, linestyle=":", label=f"mean {mean:.1f} d")
         ax.set_title(regime_label(run, r))
         ax.yaxis.set_major_formatter(PercentFormatter(decimals=0))
         ax.legend(loc="upper right")

@@ -213,6 +213,14 @@ def test_plot_reproduces_the_figures_without_touching_the_results(finished_run, 
     assert 'id="scan_diagnostics"' in (folder / "report.html").read_text()  # the scan in scan/ is part of the report
 
 
+def test_plot_of_a_scan_folder_draws_the_scan_figure(finished_run, tmp_path):
+    folder = tmp_path / "scan"
+    shutil.copytree(finished_run / "scan", folder)
+    (folder / "scan_diagnostics.png").unlink()
+    assert cli.main(["--quiet", "plot", str(folder)]) == 0
+    assert sorted(p.name for p in folder.iterdir()) == ["scan.nc", "scan_diagnostics.png"]  # a scan alone has no report
+
+
 @pytest.mark.parametrize("content", [[], ["labels.nc"], ["labels.nc", "composites.nc", "statistics.nc", "eofs.nc"]])
 def test_plot_refuses_a_folder_that_is_not_a_finished_run(finished_run, tmp_path, content, capsys):
     folder = tmp_path / "partial"
