@@ -356,7 +356,7 @@ def _ordinals(year, month, day, calendar: str) -> np.ndarray:
 
 
 def timeline(run: Finished, style) -> Figure:
-    """The daily regimes as a strip, one row per season-year; missing days are left blank."""
+    """The daily (or monthly) regimes as a strip, one row per season-year; missing days are left blank."""
     lab = run.labels
     time = lab["time"]
     years = lab["season_year"].values
@@ -387,7 +387,7 @@ def timeline(run: Finished, style) -> Figure:
     ax.set_xticks(ticks, [_calendar.month_abbr[m] for m in months])
     ax.yaxis.set_major_locator(MaxNLocator(integer=True, nbins=min(rows.size, 12)))
     ax.set_ylabel("season-year")
-    ax.set_title(f"Daily regime sequence · {period_text(run)}")
+    ax.set_title(f"{'Monthly' if step_months else 'Daily'} regime sequence · {period_text(run)}")
     handles = [Patch(color=c, label=regime_label(run, r)) for r, c in zip(lab["regime"].values, colours[1:])]
     handles.append(Patch(facecolor="#ffffff", edgecolor="#999999", label="no data"))
     ax.legend(handles=handles, ncols=min(len(handles), 6), loc="upper left", bbox_to_anchor=(0, -0.04 * max(1, 25 / rows.size)))
