@@ -80,7 +80,7 @@ def regime_colours(k: int) -> list:
 
 def regime_label(run: Finished, regime: int) -> str:
     """'Regime 2' or, when the config named the regimes, 'Regime 2 · blocked'."""
-    name = str(run.composites["regime_name"].sel(regime=regime).values)
+    name = str(run.statistics["regime_name"].sel(regime=regime).values)
     return f"Regime {regime}" if name == f"regime_{regime}" else f"Regime {regime} · {name}"
 
 
@@ -375,20 +375,20 @@ def timeline(run: Finished, style) -> Figure:
         tick_years = [y0 + int(m < start) for m in months]
         ticks = list(_ordinals(tick_years, months, np.ones(len(months)), calendar) - _ordinals([y0], [start], [1], calendar)[0])
     rows = np.unique(years)
-    strip = np.zeros((rows.size, int(offset.max()) + 1), dtype=int)
-    strip[np.searchsorted(rows, years), offset] = lab["label"].values
-    k = lab.sizes["regime"]
-    colours = ["#ffffff", *regime_colours(k)]
+    states = run.statistics["regime"].values
+    strip = np.full((rows.size, int(offset.max()) + 1), -1)  # -1: no data; else the position of the state
+    strip[np.searchsorted(rows, years), offset] = np.searchsorted(states, lab["label"].values)
+    colours = ["#ffffff", *regime_colours(states.size)]
     fig = _figure(min(2.2 + 0.16 * rows.size, 12.0))
     ax = _panel(fig.add_subplot())
-    ax.imshow(strip, aspect="auto", interpolation="nearest", cmap=ListedColormap(colours), vmin=-0.5, vmax=k + 0.5,
+    ax.imshow(strip, aspect="auto", interpolation="nearest", cmap=ListedColormap(colours), vmin=-1.5, vmax=states.size - 0.5,
               extent=(-0.5, strip.shape[1] - 0.5, rows[-1] + 0.5, rows[0] - 0.5))
     ax.grid(False)
     ax.set_xticks(ticks, [_calendar.month_abbr[m] for m in months])
     ax.yaxis.set_major_locator(MaxNLocator(integer=True, nbins=min(rows.size, 12)))
     ax.set_ylabel("season-year")
     ax.set_title(f"{'Monthly' if step_months else 'Daily'} regime sequence · {period_text(run)}")
-    handles = [Patch(color=c, label=regime_label(run, r)) for r, c in zip(lab["regime"].values, colours[1:])]
+    handles = [Patch(color=c, label=regime_label(run, r)) for r, c in zip(states, colours[1:])]
     handles.append(Patch(facecolor="#ffffff", edgecolor="#999999", label="no data"))
     ax.legend(handles=handles, ncols=min(len(handles), 6), loc="upper left", bbox_to_anchor=(0, -0.04 * max(1, 25 / rows.size)))
     return fig

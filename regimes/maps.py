@@ -13,6 +13,7 @@ sectors, plate carree for tropical bands and regions that straddle the equator.
 
 from __future__ import annotations
 
+import logging
 from dataclasses import dataclass
 
 import cartopy.crs as ccrs
@@ -21,6 +22,10 @@ import numpy as np
 import xarray as xr
 
 from . import coastline
+
+log = logging.getLogger("regimes")
+
+CONIC = ("lambert-conformal", "albers-equal-area")
 
 TROPICS = 30.0
 """Regions within this latitude of the equator are tropical bands (degrees)."""
@@ -77,10 +82,19 @@ def region_of(lat: np.ndarray, lon: np.ndarray) -> Region:
 
 
 def choose(region: Region, name: str = "auto") -> str:
-    """The projection for ``region``: ``name`` itself, or the ``auto`` rule (see the module docstring)."""
+    """The projection for ``region``: ``name`` itself, or the ``auto`` rule (see the module docstring).
+
+    A cone cannot hold a region that reaches both sides of the equator: a
+    conic ``name`` is then replaced by plate carree, with a warning.
+    """
+    straddles = region.south < 0 < region.north
+    if name in CONIC and straddles:
+        log.warning("figures.projection = '%s' cannot show latitudes %g to %g (both sides of the equator); drawing plate carree",
+                    name, region.south, region.north)
+        return "plate-carree"
     if name != "auto":
         return name
-    if max(abs(region.south), abs(region.north)) <= TROPICS or region.south < 0 < region.north:
+    if max(abs(region.south), abs(region.north)) <= TROPICS or straddles:
         return "plate-carree"
     poleward = max(abs(region.south), abs(region.north))
     if (poleward >= POLAR_EDGE and region.span >= 180.0) or (region.full_circle and poleward >= 60.0):

@@ -119,10 +119,6 @@ def _table(head: list[str], rows: list[list], names: int = 1) -> str:
     return f"<table><thead><tr>{cells(head, 'th')}</tr></thead><tbody>{body}</tbody></table>"
 
 
-def _names(found: finished.Finished) -> list[str]:
-    return [str(n) for n in found.composites["regime_name"].values]
-
-
 def data_summary(found: finished.Finished) -> list[tuple[str, str]]:
     """(label, value) pairs: files, period, grid, days used, points used and missing."""
     lab, comp, eofs = found.labels, found.composites, found.eofs
@@ -152,10 +148,10 @@ def regime_table(found: finished.Finished) -> str:
     """Frequency and persistence of each regime."""
     st = found.statistics
     rows = []
-    for r, name in zip(st["regime"].values, _names(found)):
+    for r, name in zip(st["regime"].values, st["regime_name"].values):
         p = float(st["transition_probability"].sel(regime_from=r, regime_to=r))
         rows.append([
-            r, name, int(found.composites["day_count"].sel(regime=r)), f"{100 * float(st['frequency'].sel(regime=r)):.1f}",
+            r, name, int((found.labels["label"] == r).sum()), f"{100 * float(st['frequency'].sel(regime=r)):.1f}",
             int(st["episode_count"].sel(regime=r)), f"{float(st['mean_duration'].sel(regime=r)):.1f}",
             f"{float(st['median_duration'].sel(regime=r)):.0f}", int(st["max_duration"].sel(regime=r)),
             f"{p:.3f}", f"{1 / (1 - p):.1f}" if p < 1 else "∞",

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import os
 import subprocess
 import sys
 import tomllib
@@ -19,15 +18,10 @@ LAT = np.arange(30.0, 71.0, 10.0)
 LON = np.arange(-40.0, 21.0, 10.0)
 
 
-ROOT = Path(__file__).resolve().parents[1]
-
-
 def regimes_cli(*args, cwd):
-    """``python -m regimes ARGS`` in ``cwd``, importing this checkout's package."""
     return subprocess.run(
         [sys.executable, "-m", "regimes", *map(str, args)],
         cwd=cwd,
-        env={**os.environ, "PYTHONPATH": os.pathsep.join([str(ROOT), os.environ.get("PYTHONPATH", "")])},
         capture_output=True,
         text=True,
         timeout=300,
