@@ -15,7 +15,7 @@ import xarray as xr
 from matplotlib.contour import ContourSet
 from PIL import Image
 
-from regimes import cli, coastline, config, figures, finished, maps, report
+from regimes import cli, coastline, config, figures, finished, maps, pipeline, report
 from regimes.errors import UserError
 
 STYLE = config.validate_section("figures", {"eof_modes": 3, "dpi": 80})
@@ -214,6 +214,19 @@ def test_plot_reproduces_the_figures_without_touching_the_results(finished_run, 
     assert {p.name: p.read_bytes() for p in folder.glob("*.png")} == drawn  # same pixels, byte for byte
     assert {p.name: p.read_bytes() for p in folder.glob("*.nc")} == results
     assert 'id="scan_diagnostics"' in (folder / "report.html").read_text()  # the scan in scan/ is part of the report
+
+
+def test_a_run_over_an_earlier_one_leaves_none_of_its_figures(finished_run, tmp_path):
+    folder = tmp_path / "again"
+    shutil.copytree(finished_run, folder)
+    (folder / "regime_maps.pdf").write_bytes(b"%PDF- from an earlier run")
+    job = tmp_path / "job.toml"
+    job.write_text(f'[data]\npaths = ["{finished_run.parent / "psl.nc"}"]\nvariable = "psl"\n[eof]\nmodes = 3\n'
+                   '[regimes]\nk = 2\nrestarts = 2\n[figures]\ndraw = false\n[output]\ndir = "again"\n')
+    cfg, text = config.load(job)
+    pipeline.run(cfg, text, overwrite=True)
+    left = {p.name for p in folder.iterdir()}
+    assert left == set(finished.RUN_FILES) | {"scan"}  # the scan is the scan's, not the run's
 
 
 def test_plot_of_a_scan_folder_draws_the_scan_figure(finished_run, tmp_path):
