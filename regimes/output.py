@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
+from .config import FIGURE_FORMATS
 from .errors import UserError
 
 PACKAGES = ("regimes", "numpy", "scipy", "xarray", "dask", "netCDF4", "scikit-learn", "cftime")
@@ -140,6 +141,13 @@ def write_bytes(content: bytes, path: Path) -> Path:
     with _atomic(path) as tmp:
         tmp.write_bytes(content)
     return path
+
+
+def remove_drawn(folder: Path) -> None:
+    """Remove the figures (PNG, PDF, SVG) and the report that an earlier run left in ``folder`` (not in its subfolders)."""
+    for path in folder.iterdir():
+        if path.is_file() and (path.suffix.lstrip(".") in FIGURE_FORMATS or path.name == "report.html"):
+            path.unlink()
 
 
 def write_all(files: dict[str, xr.Dataset], folder: Path, overwrite: bool) -> list[Path]:

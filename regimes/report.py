@@ -22,7 +22,7 @@ import matplotlib
 import numpy as np
 from PIL import Image
 
-from . import config, figures, finished, output
+from . import figures, finished, output
 
 log = logging.getLogger("regimes")
 
@@ -41,15 +41,6 @@ def compact_png(png: bytes) -> bytes:
     buffer = io.BytesIO()
     small.save(buffer, format="PNG", optimize=True)
     return buffer.getvalue()
-
-
-def remove_drawn(folder: Path) -> None:
-    """Remove the figures (in every format) and the report that an earlier run left in ``folder``."""
-    for spec in figures.CATALOGUE:
-        if spec.needs == "run":
-            for fmt in config.FIGURE_FORMATS:
-                (folder / f"{spec.stem}.{fmt}").unlink(missing_ok=True)
-    (folder / "report.html").unlink(missing_ok=True)
 
 
 def draw_all(found: finished.Finished, style) -> list[Path]:

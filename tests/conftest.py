@@ -11,11 +11,11 @@ SMALL_LAT = np.arange(30.0, 71.0, 10.0)
 SMALL_LON = np.arange(-40.0, 21.0, 10.0)
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture(scope="session")
 def finished_run(tmp_path_factory):
     """A finished run of four winters of planted regimes on a coarse grid, with a scan in out/scan, drawn by ``pipeline.run``.
 
-    Built once per test module (planted data from :mod:`regimes.synthetic`).
+    Built once per test session (per xdist worker); planted data from :mod:`regimes.synthetic`. Tests copy it before changing it.
     The scan comes first (``regimes scan`` draws its figure), then the run
     into the same folder, so that its report includes the scan.
     """
