@@ -16,7 +16,7 @@ venv: $(STAMP)
 
 demo: $(STAMP)
 	$(BIN)/regimes run configs/demo.toml --overwrite
-	@echo "Demo results are in out/demo/ (labels.nc, composites.nc, statistics.nc, eofs.nc, model.nc)."
+	@echo "Demo results are in out/demo/ (labels.nc, composites.nc, statistics.nc, eofs.nc, model.nc, figures, report.html)."
 
 test: $(STAMP)
 	$(BIN)/python -m pytest -n 2 -q

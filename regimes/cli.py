@@ -1,4 +1,4 @@
-"""Command line: ``regimes run``, ``scan``, ``assign``, ``compare`` and ``init``.
+"""Command line: ``regimes run``, ``scan``, ``plot``, ``assign``, ``compare`` and ``init``.
 
 User errors (:class:`~regimes.errors.UserError`, and mistakes in the command
 line itself) end with one line on standard error and exit status 2; anything
@@ -62,6 +62,22 @@ def _scan(args) -> None:
     print(scan.table(table))
     print(table.attrs["recommendation"])
     print(f"wrote {folder / 'scan.nc'}")
+    if cfg.figures.draw:
+        from . import finished, report
+
+        with pipeline.stage("figures"):
+            report.draw_all(finished.open_folder(folder), cfg.figures)
+
+
+def _plot(args) -> None:
+    from . import finished
+
+    found = finished.open_folder(args.folder)
+    from . import report  # matplotlib and cartopy, once the folder is known to be finished
+
+    overrides = {"format": args.format, "dpi": args.dpi, "projection": args.projection, "colormap": args.colormap}
+    written = report.draw_all(found, config.figure_settings(found.config_text, overrides))
+    print(f"wrote {len(written)} file{'s' if len(written) != 1 else ''} into {found.folder}")
 
 
 def _assign(args) -> None:
@@ -127,6 +143,13 @@ def parser() -> argparse.ArgumentParser:
     sc.add_argument("--output", help="output folder (default: output.dir/scan)")
     sc.add_argument("--overwrite", action="store_true", help="allow writing into an existing output folder")
     sc.set_defaults(func=_scan)
+    plot = sub.add_parser("plot", help="redraw the figures and the report of a finished run or scan (no recomputing)")
+    plot.add_argument("folder", help="output folder of 'regimes run' or 'regimes scan'")
+    plot.add_argument("--format", choices=config.FIGURE_FORMATS, help="figure file format (default: the run's figures.format)")
+    plot.add_argument("--dpi", type=int, help="resolution of PNG figures (default: the run's figures.dpi)")
+    plot.add_argument("--projection", choices=config.PROJECTIONS, help="map projection (default: the run's figures.projection)")
+    plot.add_argument("--colormap", choices=config.COLORMAPS, help="diverging colour map of the maps (default: the run's figures.colormap)")
+    plot.set_defaults(func=_plot)
     asg = sub.add_parser("assign", help="classify other data with a saved regime model")
     asg.add_argument("model", help="model file (model.nc of a run)")
     asg.add_argument("data", nargs="+", help="NetCDF files or glob patterns to classify")

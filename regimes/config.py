@@ -181,6 +181,10 @@ def _names(path, value):
 # the schema
 # --------------------------------------------------------------------------
 
+FIGURE_FORMATS = ("png", "pdf", "svg")
+PROJECTIONS = ("auto", "polar-stereographic", "lambert-conformal", "albers-equal-area", "plate-carree")
+COLORMAPS = ("RdBu_r", "PuOr_r", "BrBG_r", "RdYlBu_r")
+
 SCHEMA: dict[str, dict[str, Key]] = {
     "data": {
         "paths": Key(None, _paths, "NetCDF files or glob patterns, relative to this config file", ["data/*.nc"], required=True),
@@ -247,6 +251,19 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "output": {
         "dir": Key("out", _text, "output folder, relative to this config file"),
     },
+    "figures": {
+        "draw": Key(True, _boolean, "draw the figures and the HTML report into the output folder after each run"),
+        "format": Key("png", _choice(*FIGURE_FORMATS), "file format of the figures (the report embeds PNG copies)"),
+        "dpi": Key(150, _integer(50, 600), "resolution of PNG figures (and of the report's images), dots per inch"),
+        "projection": Key(
+            "auto",
+            _choice(*PROJECTIONS),
+            "map projection; auto: polar stereographic for polar caps, Lambert conformal for mid-latitude sectors, plate carree for tropical bands",
+        ),
+        "colormap": Key("RdBu_r", _choice(*COLORMAPS), "diverging colour map of the maps (ColorBrewer schemes, colour-blind safe)"),
+        "levels": Key(16, _integer(4, 40), "about how many filled contour intervals span the shared colour scale"),
+        "eof_modes": Key(4, _integer(1, 20), "number of leading EOF patterns drawn"),
+    },
 }
 
 
@@ -284,25 +301,50 @@ def validate(raw: dict, base_dir: Path | str = ".") -> SimpleNamespace:
             raise UserError(f"config section '[{name}]' is unknown{_suggest(name, SCHEMA)}")
         if not isinstance(raw[name], dict):
             raise UserError(f"config entry '{name}' must be a section [{name}]")
-    for section, keys in SCHEMA.items():
-        given = raw.get(section, {})
-        for key in given:
-            if key not in keys:
-                raise UserError(f"config key '{section}.{key}' is unknown{_suggest(key, keys)}")
-        values = {}
-        for key, spec in keys.items():
-            if key in given:
-                values[key] = spec.check(f"{section}.{key}", given[key])
-            elif spec.required:
-                raise UserError(f"config key '{section}.{key}' is required ({spec.doc}); add it to [{section}]")
-            else:
-                values[key] = spec.default
-        sections[section] = SimpleNamespace(**values)
+    for section in SCHEMA:
+        sections[section] = validate_section(section, raw.get(section, {}))
     cfg = SimpleNamespace(**sections)
     _check_together(cfg)
     cfg.data.paths = [str((base_dir / p)) if not Path(p).is_absolute() else p for p in cfg.data.paths]
     cfg.output.dir = str((base_dir / cfg.output.dir).resolve())
     return cfg
+
+
+def validate_section(section: str, given: dict) -> SimpleNamespace:
+    """Check one section's keys against the schema and fill in its defaults.
+
+    Raises
+    ------
+    UserError
+        On an unknown key (with the nearest known one), a missing required key or a bad value.
+    """
+    keys = SCHEMA[section]
+    for key in given:
+        if key not in keys:
+            raise UserError(f"config key '{section}.{key}' is unknown{_suggest(key, keys)}")
+    values = {}
+    for key, spec in keys.items():
+        if key in given:
+            values[key] = spec.check(f"{section}.{key}", given[key])
+        elif spec.required:
+            raise UserError(f"config key '{section}.{key}' is required ({spec.doc}); add it to [{section}]")
+        else:
+            values[key] = spec.default
+    return SimpleNamespace(**values)
+
+
+def figure_settings(config_text: str | None, overrides: dict | None = None) -> SimpleNamespace:
+    """The ``[figures]`` section of a recorded config text, with ``overrides`` (None values ignored) on top.
+
+    Used to redraw a finished run: the text is the config recorded in its
+    output files (None when the run had no config file: defaults).
+    """
+    try:
+        raw = tomllib.loads(config_text) if config_text else {}
+    except tomllib.TOMLDecodeError as err:
+        raise UserError(f"the config recorded in the output files is not valid TOML ({err}); rerun the job") from None
+    given = {**raw.get("figures", {}), **{k: v for k, v in (overrides or {}).items() if v is not None}}
+    return validate_section("figures", given)
 
 
 def _check_together(cfg: SimpleNamespace) -> None:

@@ -21,6 +21,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
+from .config import FIGURE_FORMATS
 from .errors import UserError
 
 PACKAGES = ("regimes", "numpy", "scipy", "xarray", "dask", "netCDF4", "scikit-learn", "cftime")
@@ -170,17 +171,20 @@ def write_text(text: str, path: Path) -> Path:
 
 
 def write_bytes(content: bytes, path: Path) -> Path:
-    """Write ``content`` (e.g. a PNG) to ``path`` atomically, like :func:`write`."""
+    """Write ``content`` (a figure, a page) to ``path`` atomically, like :func:`write_text`."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.partial-{os.getpid()}")
-    try:
+    with _temporary(path) as tmp:
         tmp.write_bytes(content)
         os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
     return path
+
+
+def remove_drawn(folder: Path) -> None:
+    """Remove the figures (PNG, PDF, SVG) and the report that an earlier run left in ``folder`` (not in its subfolders)."""
+    for path in folder.iterdir():
+        if path.is_file() and (path.suffix.lstrip(".") in FIGURE_FORMATS or path.name == "report.html"):
+            path.unlink()
 
 
 def write_all(files: dict[str, xr.Dataset], folder: Path, overwrite: bool) -> list[Path]:

@@ -356,6 +356,12 @@ def run(cfg: SimpleNamespace, config_text: str | None, output_dir: str | None = 
     with stage(f"writing results to {folder}"):
         files = results.assemble(found["cfg"], prep, found, attrs)
         output.write_all(files, folder, overwrite)
+        output.remove_drawn(folder)  # figures of an earlier run in this folder would not show these results
+    if cfg.figures.draw:
+        from . import finished, report  # matplotlib and cartopy are imported only to draw
+
+        with stage("figures and report"):
+            report.draw_all(finished.open_folder(folder), cfg.figures)
     log.info("finished in %.1f s; results in %s", time.perf_counter() - started, folder)
     return folder
 

@@ -49,11 +49,12 @@ def toml_value(value):
 
 
 def job_text(paths, **sections):
-    """A small job: few modes and restarts; extra keys as section={key: value}."""
+    """A small job: few modes and restarts, no figures (tests/test_figures.py draws them); extra keys as section={key: value}."""
     base = {
         "data": {"paths": str(paths), "variable": "psl"},
         "eof": {"modes": 4},
         "regimes": {"k": 3, "restarts": 3},
+        "figures": {"draw": False},
         "output": {"dir": "out"},
     }
     for name, keys in sections.items():

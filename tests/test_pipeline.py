@@ -44,6 +44,8 @@ modes = 8
 k = 4
 restarts = 20
 seed = 7
+[figures]
+draw = false
 [output]
 dir = "out-year"
 """,
@@ -140,6 +142,8 @@ months = [12, 1, 2]
 [regimes]
 k = 4
 restarts = 10
+[figures]
+draw = false
 [output]
 dir = "out"
 """,
@@ -211,6 +215,8 @@ modes = 6
 method = "{method}"
 k = 3
 restarts = 3
+[figures]
+draw = false
 [output]
 dir = "unused"
 """,
@@ -238,6 +244,8 @@ modes = 3
 [regimes]
 k = 2
 restarts = 5
+[figures]
+draw = false
 [output]
 dir = "out"
 """,

@@ -370,6 +370,9 @@ restarts = 10
 seed = 1
 names = ["first", "second", "third"]
 
+[figures]
+draw = false
+
 [output]
 dir = "unused"
 """

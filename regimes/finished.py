@@ -1,0 +1,97 @@
+"""Reading a finished output folder back: what the figures and the report are drawn from.
+
+A finished run is a folder holding the five result files of ``regimes run``
+(see :mod:`regimes.results`); a finished scan is a folder holding the
+``scan.nc`` of ``regimes scan``. A run folder may also hold a scan, either
+beside the results or in its ``scan`` subfolder (where ``regimes scan`` puts
+it by default). Nothing here computes on the field.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import xarray as xr
+
+from .errors import UserError
+
+RUN_FILES = ("labels.nc", "composites.nc", "statistics.nc", "eofs.nc", "model.nc")
+SCAN_FILE = "scan.nc"
+CHECK = {"labels.nc": "label", "composites.nc": "anomaly_composite", "statistics.nc": "frequency", "eofs.nc": "eof",
+         "model.nc": "centroid", SCAN_FILE: "classifiability"}
+"""A variable each file must hold to count as written by regimes."""
+
+
+@dataclass
+class Finished:
+    """The datasets of a finished run and/or scan, loaded into memory."""
+
+    folder: Path
+    labels: xr.Dataset | None = None
+    composites: xr.Dataset | None = None
+    statistics: xr.Dataset | None = None
+    eofs: xr.Dataset | None = None
+    model: xr.Dataset | None = None
+    scan: xr.Dataset | None = None
+    scan_folder: Path | None = None
+
+    @property
+    def is_run(self) -> bool:
+        return self.labels is not None
+
+    @property
+    def settings(self) -> dict:
+        """Selection and method settings recorded in the model file."""
+        return json.loads(self.model.attrs["settings"])
+
+    @property
+    def config_text(self) -> str | None:
+        """The config file's text as recorded in the outputs (None when the run was started without one)."""
+        ds = self.labels if self.is_run else self.scan
+        return ds.attrs.get("config")
+
+
+def _read(path: Path) -> xr.Dataset:
+    try:
+        with xr.open_dataset(path, engine="netcdf4") as opened:
+            ds = opened.load()
+    except (OSError, ValueError, RuntimeError) as err:
+        raise UserError(f"'{path}' cannot be read ({err}); rerun the job that wrote it") from None
+    if CHECK[path.name] not in ds:
+        raise UserError(f"'{path}' holds no '{CHECK[path.name]}'; it was not written by regimes, rerun the job")
+    return ds
+
+
+def scan_path(folder: Path) -> Path | None:
+    """The scan file in ``folder`` or in its ``scan`` subfolder, if any."""
+    for path in (folder / SCAN_FILE, folder / "scan" / SCAN_FILE):
+        if path.is_file():
+            return path
+    return None
+
+
+def open_folder(folder: str | Path) -> Finished:
+    """Load a finished run (with its scan, if one is there) or a finished scan.
+
+    Raises
+    ------
+    UserError
+        If ``folder`` is neither, naming what is missing.
+    """
+    folder = Path(folder).resolve()
+    if not folder.is_dir():
+        raise UserError(f"'{folder}' is not a folder; give the output folder of a finished 'regimes run' or 'regimes scan'")
+    present = [name for name in RUN_FILES if (folder / name).is_file()]
+    scan = scan_path(folder)
+    if len(present) < len(RUN_FILES) and not (scan is not None and scan.parent == folder):
+        missing = ", ".join(name for name in RUN_FILES if name not in present)
+        raise UserError(f"'{folder}' is not a finished run (missing {missing}); give the output folder of a finished 'regimes run' or 'regimes scan'")
+    found = Finished(folder)
+    if len(present) == len(RUN_FILES):
+        for name in RUN_FILES:
+            setattr(found, name[:-3], _read(folder / name))
+    if scan is not None:
+        found.scan, found.scan_folder = _read(scan), scan.parent
+    return found
