@@ -360,8 +360,12 @@ def run(cfg: SimpleNamespace, config_text: str | None, output_dir: str | None = 
     if cfg.figures.draw:
         from . import finished, report  # matplotlib and cartopy are imported only to draw
 
-        with stage("figures and report"):
-            report.draw_all(finished.open_folder(folder), cfg.figures)
+        try:
+            with stage("figures and report"):
+                report.draw_all(finished.open_folder(folder), cfg.figures)
+        except BaseException:
+            log.error("the result files in %s are complete, the figures are not; draw them with: regimes plot %s", folder, folder)
+            raise
     log.info("finished in %.1f s; results in %s", time.perf_counter() - started, folder)
     return folder
 
