@@ -68,6 +68,9 @@ k = 4
 restarts = 100
 seed = 1
 
+[figures]
+draw = false  # the plain script draws nothing either
+
 [output]
 dir = "out-ours"
 """

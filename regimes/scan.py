@@ -33,7 +33,7 @@ import xarray as xr
 from scipy.optimize import linear_sum_assignment
 from threadpoolctl import threadpool_limits
 
-from .cluster import GaussianMixtureRegimes, KMeansRegimes, batched_lloyd, kmeans_plus_plus
+from .cluster import GaussianMixtureRegimes, batched_lloyd, kmeans_plus_plus
 from .errors import UserError
 
 STABLE = 0.9
