@@ -187,13 +187,18 @@ def remove_drawn(folder: Path) -> None:
             path.unlink()
 
 
+RESULT_FILES = frozenset({"labels.nc", "composites.nc", "statistics.nc", "eofs.nc", "model.nc", "scan.nc"})
+"""The NetCDF files a run or an assignment may write; with ``--overwrite`` those of an earlier run that
+the new one does not write are removed, and no other file."""
+
+
 def write_all(files: dict[str, xr.Dataset], folder: Path, overwrite: bool) -> list[Path]:
     """Write several result files into ``folder``: all under temporary names, then all renamed.
 
     If anything fails or the run is interrupted before the renaming, the
     temporary files are removed, and so is ``folder`` when this call created
-    it. With ``overwrite``, result files of an earlier run that
-    this run does not produce are removed, so the folder holds one run only.
+    it. With ``overwrite``, result files (:data:`RESULT_FILES`) of an earlier
+    run that this run does not produce are removed, so the folder holds one run only.
     """
     folder = Path(folder)
     created = not folder.exists()
@@ -208,9 +213,8 @@ def write_all(files: dict[str, xr.Dataset], folder: Path, overwrite: bool) -> li
                 for name, tmp in written.items():
                     os.replace(tmp, folder / name)
                 if overwrite:
-                    for stale in folder.glob("*.nc"):
-                        if stale.name not in files:
-                            stale.unlink()
+                    for stale in RESULT_FILES - set(files):
+                        (folder / stale).unlink(missing_ok=True)
     except BaseException:
         if created and not any(folder.iterdir()):
             folder.rmdir()
