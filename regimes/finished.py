@@ -103,7 +103,7 @@ def open_folder(folder: str | Path) -> Finished:
     """
     folder = Path(folder).resolve()
     if not folder.is_dir():
-        raise UserError(f"'{folder}' is not a folder; give the output folder of a finished 'regimes run' or 'regimes scan'")
+        raise UserError(f"'{folder}' is not a folder; give the output folder of a finished 'regimes run', 'regimes assign' or 'regimes scan'")
     present = [name for name in RUN_FILES if (folder / name).is_file()]
     scan = scan_path(folder)
     kind = "run" if len(present) == len(RUN_FILES) else "assignment" if _is_assignment(folder, present) else "scan"
