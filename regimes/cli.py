@@ -144,7 +144,7 @@ def parser() -> argparse.ArgumentParser:
     sc.add_argument("--overwrite", action="store_true", help="allow writing into an existing output folder")
     sc.set_defaults(func=_scan)
     plot = sub.add_parser("plot", help="redraw the figures and the report of a finished run or scan (no recomputing)")
-    plot.add_argument("folder", help="output folder of 'regimes run' or 'regimes scan'")
+    plot.add_argument("folder", help="output folder of 'regimes run', 'regimes assign' or 'regimes scan'")
     plot.add_argument("--format", choices=config.FIGURE_FORMATS, help="figure file format (default: the run's figures.format)")
     plot.add_argument("--dpi", type=int, help="resolution of PNG figures (default: the run's figures.dpi)")
     plot.add_argument("--projection", choices=config.PROJECTIONS, help="map projection (default: the run's figures.projection)")

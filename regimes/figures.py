@@ -34,7 +34,11 @@ from matplotlib.ticker import MaxNLocator, PercentFormatter
 from scipy import stats as _stats
 
 from . import data, maps
+from .cluster import UNASSIGNED
 from .finished import Finished
+
+UNASSIGNED_COLOUR = "#BBBBBB"
+"""The unassigned state (label 0): a neutral grey outside the regime scheme."""
 
 REGIME_COLOURS = ("#CC6677", "#332288", "#DDCC77", "#117733", "#88CCEE", "#882255", "#44AA99", "#999933", "#AA4499")
 
@@ -78,8 +82,16 @@ def regime_colours(k: int) -> list:
     return [matplotlib.colormaps["tab20"](i % 20) for i in range(k)]
 
 
+def state_colours(states) -> list:
+    """One colour per state of the labels: each regime keeps its colour of :func:`regime_colours`, unassigned (0) is grey."""
+    colours = regime_colours(int(max(states)))
+    return [UNASSIGNED_COLOUR if s == UNASSIGNED else colours[s - 1] for s in states]
+
+
 def regime_label(run: Finished, regime: int) -> str:
-    """'Regime 2' or, when the config named the regimes, 'Regime 2 · blocked'."""
+    """'Regime 2' or, when the config named the regimes, 'Regime 2 · blocked'; 'Unassigned' for label 0."""
+    if regime == UNASSIGNED:
+        return "Unassigned"
     name = str(run.statistics["regime_name"].sel(regime=regime).values)
     return f"Regime {regime}" if name == f"regime_{regime}" else f"Regime {regime} · {name}"
 
@@ -114,9 +126,10 @@ def season_name(months: list[int]) -> str:
 
 
 def period_text(run: Finished) -> str:
-    """Season, first and last season-year and number of days, e.g. 'DJF 1990–2010, 1805 days'."""
+    """Season, first and last season-year and number of days, e.g. 'DJF 1990–2010, 1805 days' (', 5 members' for an ensemble)."""
     years = run.labels["season_year"].values
-    return f"{season_name(season_months(run))} {years.min()}–{years.max()}, {run.labels.sizes['time']} days"
+    members = f", {run.labels.sizes['member']} members" if "member" in run.labels.dims else ""
+    return f"{season_name(season_months(run))} {years.min()}–{years.max()}, {run.labels.sizes['time']} days{members}"
 
 
 def _panel(ax):
@@ -225,7 +238,7 @@ def monthly_frequency(run: Finished, style) -> Figure:
     table = run.statistics["monthly_frequency"]
     months = [m for m in season_months(run) if m in table["month"].values]
     regimes = table["regime"].values
-    colours = regime_colours(regimes.size)
+    colours = state_colours(regimes)
     fig = _figure(3.6)
     ax = _panel(fig.add_subplot())
     width = 0.8 / regimes.size
@@ -249,7 +262,7 @@ def yearly_frequency(run: Finished, style) -> Figure:
     table = run.statistics["yearly_frequency"]
     years = table["season_year"].values.astype(float)
     regimes = table["regime"].values
-    colours = regime_colours(regimes.size)
+    colours = state_colours(regimes)
     rows, cols = _grid_shape(regimes.size)
     fig = _figure(rows * 2.2 + 0.6)
     axes = fig.subplots(rows, cols, sharex=True, sharey=True, squeeze=False).ravel()
@@ -278,7 +291,7 @@ def yearly_frequency(run: Finished, style) -> Figure:
 # --------------------------------------------------------------------------
 
 
-def _matrix(ax, fig, values: np.ndarray, labels: list[str], title: str) -> None:
+def _matrix(ax, fig, values: np.ndarray, labels: list[str], title: str, note: str = "") -> None:
     image = ax.imshow(values, cmap="cividis", vmin=0.0, vmax=max(float(np.nanmax(values)), 1e-9))
     ax.grid(False)
     for (i, j), v in np.ndenumerate(values):
@@ -288,8 +301,8 @@ def _matrix(ax, fig, values: np.ndarray, labels: list[str], title: str) -> None:
     ticks = np.arange(len(labels))
     ax.set_xticks(ticks, labels)
     ax.set_yticks(ticks, labels)
-    ax.set_xlabel("to regime")
-    ax.set_ylabel("from regime")
+    ax.set_xlabel(f"to regime{note}")
+    ax.set_ylabel(f"from regime{note}")
     ax.set_title(title)
     fig.colorbar(image, ax=ax, shrink=0.8, label="probability")
 
@@ -297,13 +310,15 @@ def _matrix(ax, fig, values: np.ndarray, labels: list[str], title: str) -> None:
 def transitions(run: Finished, style) -> Figure:
     """Annotated transition matrices: day to day, and which regime follows when an episode ends."""
     st = run.statistics
-    labels = [str(r) for r in st["regime"].values]
+    states = st["regime"].values
+    labels = [str(r) for r in states]
+    note = " (0: unassigned)" if UNASSIGNED in states else ""
     fig = _figure(4.4)
     left, right = fig.subplots(1, 2)
-    _matrix(_panel(left), fig, st["transition_probability"].values, labels, "Day-to-day transition probability")
+    _matrix(_panel(left), fig, st["transition_probability"].values, labels, "Day-to-day transition probability", note)
     following = st["next_regime_probability"].values.astype(float).copy()
     np.fill_diagonal(following, np.nan)
-    _matrix(_panel(right), fig, following, labels, "Next regime when an episode ends")
+    _matrix(_panel(right), fig, following, labels, "Next regime when an episode ends", note)
     return fig
 
 
@@ -320,7 +335,7 @@ def durations(run: Finished, style) -> Figure:
     hist = st["duration_histogram"]
     regimes = st["regime"].values
     shortest = max(int(st["episode_count"].attrs.get("min_duration_days", 0)), 1)
-    colours = regime_colours(regimes.size)
+    colours = state_colours(regimes)
     rows, cols = _grid_shape(regimes.size)
     fig = _figure(rows * 2.2 + 0.6)
     axes = fig.subplots(rows, cols, sharex=True, sharey=True, squeeze=False).ravel()
@@ -355,8 +370,17 @@ def _ordinals(year, month, day, calendar: str) -> np.ndarray:
     return np.asarray(cftime.date2num(dates, "days since 1850-01-01", calendar=calendar), dtype=float)
 
 
+def most_members(label: xr.DataArray, states: np.ndarray) -> np.ndarray:
+    """The state most members are in on each time step of ``label(member, time)`` (ties: the lowest state number)."""
+    counts = np.stack([(label == s).sum("member").values for s in states])
+    return states[counts.argmax(0)]
+
+
 def timeline(run: Finished, style) -> Figure:
-    """The daily (or monthly) regimes as a strip, one row per season-year; missing days are left blank."""
+    """The daily (or monthly) regimes as a strip, one row per season-year; missing days are left blank.
+
+    For an ensemble, each day shows the state of most members (:func:`most_members`).
+    """
     lab = run.labels
     time = lab["time"]
     years = lab["season_year"].values
@@ -376,9 +400,11 @@ def timeline(run: Finished, style) -> Figure:
         ticks = list(_ordinals(tick_years, months, np.ones(len(months)), calendar) - _ordinals([y0], [start], [1], calendar)[0])
     rows = np.unique(years)
     states = run.statistics["regime"].values
+    ensemble = "member" in lab["label"].dims
+    daily = most_members(lab["label"], states) if ensemble else lab["label"].values
     strip = np.full((rows.size, int(offset.max()) + 1), -1)  # -1: no data; else the position of the state
-    strip[np.searchsorted(rows, years), offset] = np.searchsorted(states, lab["label"].values)
-    colours = ["#ffffff", *regime_colours(states.size)]
+    strip[np.searchsorted(rows, years), offset] = np.searchsorted(states, daily)
+    colours = ["#ffffff", *state_colours(states)]
     fig = _figure(min(2.2 + 0.16 * rows.size, 12.0))
     ax = _panel(fig.add_subplot())
     ax.imshow(strip, aspect="auto", interpolation="nearest", cmap=ListedColormap(colours), vmin=-1.5, vmax=states.size - 0.5,
@@ -387,7 +413,8 @@ def timeline(run: Finished, style) -> Figure:
     ax.set_xticks(ticks, [_calendar.month_abbr[m] for m in months])
     ax.yaxis.set_major_locator(MaxNLocator(integer=True, nbins=min(rows.size, 12)))
     ax.set_ylabel("season-year")
-    ax.set_title(f"{'Monthly' if step_months else 'Daily'} regime sequence · {period_text(run)}")
+    what = " (state of most members)" if ensemble else ""
+    ax.set_title(f"{'Monthly' if step_months else 'Daily'} regime sequence{what} · {period_text(run)}")
     handles = [Patch(color=c, label=regime_label(run, r)) for r, c in zip(states, colours[1:])]
     handles.append(Patch(facecolor="#ffffff", edgecolor="#999999", label="no data"))
     ax.legend(handles=handles, ncols=min(len(handles), 6), loc="upper left", bbox_to_anchor=(0, -0.04 * max(1, 25 / rows.size)))
@@ -469,22 +496,26 @@ def scan_diagnostics(run: Finished, style) -> Figure:
 
 @dataclass(frozen=True)
 class Spec:
-    """One figure: file stem, heading and caption in the report, drawing function, and whether it needs a run or a scan."""
+    """One figure: file stem, heading and caption in the report, drawing function, and what it is drawn from.
+
+    ``needs`` is "results" (labels, composites and statistics: a run or an
+    assignment), "eofs" (a run's eofs.nc) or "scan".
+    """
 
     stem: str
     heading: str
     caption: str
     draw: Callable[[Finished, object], Figure]
-    needs: str = "run"
+    needs: str = "results"
 
 
 CATALOGUE = (
     Spec("regime_maps", "Regime composites",
          "Mean anomaly over the days of each regime, filled contours with contour lines (negative dashed), one symmetric "
-         "colour scale for all panels. Blank: grid points left out of the analysis.", regime_maps),
+         "colour scale for all panels. Blank: grid points left out of the analysis. Unassigned days have no panel.", regime_maps),
     Spec("eof_maps", "Leading EOFs",
          "Anomaly for one standard deviation of each principal component; ± is the North et al. (1982) sampling error. "
-         "The sign of an EOF is arbitrary.", eof_maps),
+         "The sign of an EOF is arbitrary.", eof_maps, needs="eofs"),
     Spec("monthly_frequency", "Frequency by calendar month",
          "Share of each calendar month's days spent in each regime; dotted lines give the share over the whole season.", monthly_frequency),
     Spec("yearly_frequency", "Frequency per season-year",
@@ -496,7 +527,9 @@ CATALOGUE = (
     Spec("durations", "Episode durations",
          "Episodes are runs of one regime within runs of consecutive days. The line is the geometric law (1 − p) p^(d − 1) "
          "implied by the day-to-day persistence p.", durations),
-    Spec("timeline", "Daily regime sequence", "One row per season-year; blank cells are days outside the data.", timeline),
+    Spec("timeline", "Daily regime sequence",
+         "One row per season-year; blank cells are days outside the data. For an ensemble, each day shows the state most "
+         "members are in (ties: the lower number).", timeline),
     Spec("scan_diagnostics", "Choosing the number of regimes",
          "From regimes scan: classifiability against red-noise surrogates, within/total variance, silhouette, Gaussian-"
          "mixture BIC and AIC, and the stability of the regime patterns; the recommended k is shaded.",
@@ -506,5 +539,5 @@ CATALOGUE = (
 
 def available(found: Finished) -> list[Spec]:
     """The figures that can be drawn from what the folder holds."""
-    have = {"run": found.is_run, "scan": found.scan is not None}
+    have = {"results": found.has_results, "eofs": found.eofs is not None, "scan": found.scan is not None}
     return [spec for spec in CATALOGUE if have[spec.needs]]

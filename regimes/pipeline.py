@@ -9,6 +9,7 @@ matrix kept in memory when it is smaller than :data:`MEMORY_BUDGET_BYTES`.
 from __future__ import annotations
 
 import contextlib
+import json
 import logging
 import sys
 import time
@@ -358,16 +359,21 @@ def run(cfg: SimpleNamespace, config_text: str | None, output_dir: str | None = 
         output.write_all(files, folder, overwrite)
         output.remove_drawn(folder)  # figures of an earlier run in this folder would not show these results
     if cfg.figures.draw:
-        from . import finished, report  # matplotlib and cartopy are imported only to draw
-
-        try:
-            with stage("figures and report"):
-                report.draw_all(finished.open_folder(folder), cfg.figures)
-        except BaseException:
-            log.error("the result files in %s are complete, the figures are not; draw them with: regimes plot %s", folder, folder)
-            raise
+        draw(folder, cfg.figures)
     log.info("finished in %.1f s; results in %s", time.perf_counter() - started, folder)
     return folder
+
+
+def draw(folder: Path, style: SimpleNamespace) -> None:
+    """The figures and the report of a finished folder; on failure, says that the results are complete and how to redraw."""
+    from . import finished, report  # matplotlib and cartopy are imported only to draw
+
+    try:
+        with stage("figures and report"):
+            report.draw_all(finished.open_folder(folder), style)
+    except BaseException:
+        log.error("the result files in %s are complete, the figures are not; draw them with: regimes plot %s", folder, folder)
+        raise
 
 
 def assign(
@@ -384,7 +390,9 @@ def assign(
     The same selection, weights and EOF projection as the fit; nearest
     centroid (k-means) or most probable component (mixture); label 0 below
     ``regimes.unassigned_below``. The output attributes record the model file
-    and checksum and where the climatology came from.
+    and checksum and where the climatology came from; ``labels.nc`` also
+    records the settings applied (attribute ``settings``), so that the
+    figures, drawn as for a run when ``figures.draw`` is set, need no model file.
 
     Parameters
     ----------
@@ -420,9 +428,19 @@ def assign(
             climatology_comment=_climatology_comment(cfg.assign.climatology, prep.climatology_kind),
         )
         files = results.assemble(cfg, prep, found, attrs, results.ASSIGN_FILES)
+        files["labels.nc"].attrs["settings"] = json.dumps(assigned_settings(cfg, model))
         output.write_all(files, folder, overwrite)
+        output.remove_drawn(folder)  # figures of an earlier job in this folder would not show these results
+    if cfg.figures.draw:
+        draw(folder, cfg.figures)
     log.info("finished in %.1f s; results in %s", time.perf_counter() - started, folder)
     return folder
+
+
+def assigned_settings(cfg: SimpleNamespace, model: RegimeModel) -> dict:
+    """The model's settings as this assignment applied them (its variable name and statistics settings)."""
+    r = cfg.regimes
+    return {**model.settings, "variable": cfg.data.variable, "min_duration_days": r.min_duration_days, "unassigned_below": r.unassigned_below}
 
 
 def _climatology_comment(source: str, kind: str) -> str:

@@ -1,4 +1,4 @@
-"""Drawing a finished folder: every figure into the folder, and the one-page HTML report of a run.
+"""Drawing a finished folder: every figure into the folder, and the one-page HTML report of a run or an assignment.
 
 :func:`draw_all` reads the finished datasets (:mod:`regimes.finished`),
 draws each figure of :data:`regimes.figures.CATALOGUE` that the folder
@@ -44,12 +44,12 @@ def compact_png(png: bytes) -> bytes:
 
 
 def draw_all(found: finished.Finished, style) -> list[Path]:
-    """Draw every figure a finished folder supports, and the report of a run; returns the files written.
+    """Draw every figure a finished folder supports, and the report of a run or assignment; returns the files written.
 
     Parameters
     ----------
     found : regimes.finished.Finished
-        A finished run or scan (:func:`regimes.finished.open_folder`).
+        A finished run, assignment or scan (:func:`regimes.finished.open_folder`).
     style : types.SimpleNamespace
         Validated ``[figures]`` settings (:func:`regimes.config.validate_section`).
     """
@@ -67,7 +67,7 @@ def draw_all(found: finished.Finished, style) -> list[Path]:
     for spec, content, _ in drawn:
         where = found.scan_folder if spec.needs == "scan" else found.folder
         written.append(output.write_bytes(content, where / f"{spec.stem}.{style.format}"))
-    if found.is_run:
+    if found.has_results:
         written.append(output.write_bytes(page(found, [(spec, png) for spec, _, png in drawn]).encode("utf-8"), found.folder / "report.html"))
     log.info("wrote %d files into %s", len(written), found.folder)
     return written
@@ -120,7 +120,7 @@ def _table(head: list[str], rows: list[list], names: int = 1) -> str:
 
 
 def data_summary(found: finished.Finished) -> list[tuple[str, str]]:
-    """(label, value) pairs: files, period, grid, days used, points used and missing."""
+    """(label, value) pairs: files, period, grid, days used, points used and missing; the model of an assignment."""
     lab, comp, eofs = found.labels, found.composites, found.eofs
     first, last = (str(v)[:10] for v in lab["time"].values[[0, -1]])
     lat, lon = comp["lat"].values, comp["lon"].values
@@ -129,18 +129,28 @@ def data_summary(found: finished.Finished) -> list[tuple[str, str]]:
     step = lambda v: f"{float(np.median(np.abs(np.diff(v)))):g}°" if v.size > 1 else "one point"  # noqa: E731
     settings = found.settings
     files = lab.attrs.get("input_files", "").split("\n")
+    members = [("ensemble", f"{lab.sizes['member']} members, classified one by one")] if "member" in lab.dims else []
+    if eofs is not None:
+        modes = ("EOFs", f"{eofs.sizes['mode']} modes, {100 * float(eofs['variance_fraction'].sum()):.1f} % of variance, {settings['weighting']} weights")
+    else:
+        modes = ("EOFs", f"the model's {lab.sizes['mode']} modes, {settings['weighting']} weights")
+    model = [("model", f"{lab.attrs['model_file']} (checksum {lab.attrs.get('model_checksum', '?')})"),
+             ("climatology", lab.attrs.get("climatology_comment", lab.attrs.get("climatology_source", "")))] if found.kind == "assignment" else []
     return [
         ("variable", f"{settings['variable']} ({settings.get('units') or 'no units'})"),
         ("input files", f"{len(files)}: " + ", ".join(Path(f).name for f in files[:4]) + (" …" if len(files) > 4 else "")),
         ("period", f"{first} to {last}"),
         ("season", f"{figures.season_name(figures.season_months(found))}, {np.unique(lab['season_year']).size} season-years"),
         ("days used", f"{lab.sizes['time']} in {int(lab['segment_start'].sum())} runs of consecutive days"),
+        *members,
         ("grid", f"{lat.size} × {lon.size} points, {step(lat)} × {step(lon)}; lat {lat.min():g} to {lat.max():g}, lon {lon.min():g} to {lon.max():g}"),
         ("grid points", f"{used} used, {total - used} missing at every time (left out)"),
         ("anomalies", f"climatology {settings['climatology']}" + (f", {settings['harmonics']} harmonics" if settings["climatology"] == "daily" else "")
          + (", detrended" if settings.get("detrend") else "")),
-        ("EOFs", f"{eofs.sizes['mode']} modes, {100 * float(eofs['variance_fraction'].sum()):.1f} % of variance, {settings['weighting']} weights"),
-        ("regimes", f"k = {settings['k']} by {METHODS.get(settings['method'], settings['method'])}"),
+        modes,
+        ("regimes", f"k = {settings['k']} by {METHODS.get(settings['method'], settings['method'])}"
+         + (f", unassigned below a pattern correlation of {settings['unassigned_below']:g}" if settings.get("unassigned_below") is not None else "")),
+        *model,
     ]
 
 
@@ -148,7 +158,7 @@ def regime_table(found: finished.Finished) -> str:
     """Frequency and persistence of each regime."""
     st = found.statistics
     rows = []
-    for r, name in zip(st["regime"].values, st["regime_name"].values):
+    for r, name in zip(st["regime"].values, st["regime_name"].values):  # label 0 (unassigned) included as a state
         p = float(st["transition_probability"].sel(regime_from=r, regime_to=r))
         rows.append([
             r, name, int((found.labels["label"] == r).sum()), f"{100 * float(st['frequency'].sel(regime=r)):.1f}",
@@ -156,7 +166,7 @@ def regime_table(found: finished.Finished) -> str:
             f"{float(st['median_duration'].sel(regime=r)):.0f}", int(st["max_duration"].sel(regime=r)),
             f"{p:.3f}", f"{1 / (1 - p):.1f}" if p < 1 else "∞",
         ])
-    head = ["regime", "name", "days", "frequency %", "episodes", "mean d", "median d", "longest d", "persistence p", "1/(1−p) d"]
+    head = ["regime", "name", "days" if "member" not in found.labels.dims else "member-days", "frequency %", "episodes", "mean d", "median d", "longest d", "persistence p", "1/(1−p) d"]
     return _table(head, rows, names=2)
 
 
@@ -195,16 +205,18 @@ def _figure_html(spec: figures.Spec, png: bytes) -> str:
 
 
 def page(found: finished.Finished, images: list[tuple[figures.Spec, bytes]]) -> str:
-    """The report of a finished run as one self-contained HTML page."""
+    """The report of a finished run or assignment as one self-contained HTML page."""
     settings = found.settings
     lab = found.labels
-    title = f"Regimes of {settings['variable']}: k = {settings['k']}, {figures.period_text(found)}"
+    what = "Regimes" if found.kind == "run" else "Assigned regimes"
+    title = f"{what} of {settings['variable']}: k = {settings['k']}, {figures.period_text(found)}"
     shown = {spec.stem: _figure_html(spec, png) for spec, png in images}
     headings = {spec.stem: spec.heading for spec, _ in images}
     facts = "".join(f'<div class="fact"><b>{_esc(k)}</b>{_esc(v)}</div>' for k, v in data_summary(found))
     sections = [("summary", "Data", f'<div class="facts">{facts}</div>')]
     sections.append(("regimes", "Regimes", shown.get("regime_maps", "") + "<h3>Frequency and persistence</h3>" + regime_table(found)))
-    sections.append(("eofs", "EOFs", shown.get("eof_maps", "") + eof_table(found)))
+    if found.eofs is not None:
+        sections.append(("eofs", "EOFs", shown.get("eof_maps", "") + eof_table(found)))
     sections.append(("frequency", "Frequency", shown.get("monthly_frequency", "") + shown.get("yearly_frequency", "")))
     sections.append(("transitions", "Transitions", shown.get("transitions", "")
                      + "<h3>Day-to-day transition probability</h3>" + matrix_table(found, "transition_probability")
@@ -215,7 +227,7 @@ def page(found: finished.Finished, images: list[tuple[figures.Spec, bytes]]) -> 
         sections.append(("scan", headings.get("scan_diagnostics", "Scan"), shown.get("scan_diagnostics", "")
                          + f"<p>{_esc(rec)}</p>" + scan_table(found.scan)
                          + f'<p class="note">Scan file: {_esc(found.scan_folder / finished.SCAN_FILE)}; {_esc(found.scan.attrs.get("history", ""))}</p>'))
-    config_text = found.config_text or "(the run was started without a config file)"
+    config_text = found.config_text or f"(the {found.kind} was started without a config file)"
     sections.append(("config", "Config", f"<pre>{_esc(config_text)}</pre>"))
     sections.append(("provenance", "Provenance", _table(["", "value"], [
         ["history", lab.attrs.get("history", "")], ["source", lab.attrs.get("source", "")],
@@ -226,7 +238,7 @@ def page(found: finished.Finished, images: list[tuple[figures.Spec, bytes]]) -> 
     return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8"><meta name="viewport" content="width=device-width, initial-scale=1">
 <link rel="icon" href="data:,"><title>{_esc(title)}</title><style>{CSS}</style></head>
-<body><header><h1>{_esc(title)}</h1><p>{_esc(METHODS.get(settings['method'], settings['method']))} on {found.eofs.sizes['mode']} principal components ·
+<body><header><h1>{_esc(title)}</h1><p>{_esc(METHODS.get(settings['method'], settings['method']))} on {lab.sizes['mode']} principal components ·
 {_esc(lab.attrs.get('history', ''))}</p></header>
 <nav>{nav}</nav><main>{body}
 <p class="note">Regime statistics are research diagnostics, not forecasts or warnings.</p></main></body></html>
