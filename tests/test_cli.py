@@ -191,8 +191,14 @@ def test_a_bug_keeps_its_traceback_and_exits_1(inputs, tmp_path):
 
 @pytest.mark.parametrize(
     "argv, module, function",
-    [(["scan", "{job}"], "data", "open_inputs"), (["init", "{folder}/new.toml"], "config", "reference_text")],
-    ids=["scan", "init"],
+    [
+        (["scan", "{job}"], "data", "open_inputs"),
+        (["init", "{folder}/new.toml"], "config", "reference_text"),
+        (["plot", "{folder}"], "finished", "open_folder"),
+        (["assign", "{folder}/model.nc", "{folder}/data.nc"], "model", "RegimeModel.load"),
+        (["compare", "{folder}", "{folder}", "--output", "{folder}/cmp"], "compare", "read"),
+    ],
+    ids=["scan", "init", "plot", "assign", "compare"],
 )
 def test_a_bug_is_not_turned_into_a_user_error(inputs, tmp_path, monkeypatch, argv, module, function):
     """In every command, only UserError becomes the one-line answer; anything else propagates."""
@@ -203,7 +209,11 @@ def test_a_bug_is_not_turned_into_a_user_error(inputs, tmp_path, monkeypatch, ar
     def broken(*args, **kwargs):
         raise RuntimeError("planted bug")
 
-    monkeypatch.setattr(importlib.import_module(f"regimes.{module}"), function, broken)
+    owner = importlib.import_module(f"regimes.{module}")
+    *path, name = function.split(".")
+    for attribute in path:
+        owner = getattr(owner, attribute)
+    monkeypatch.setattr(owner, name, broken)
     cfg = tmp_path / "job.toml"
     cfg.write_text(job_text(inputs["good"]))
     with pytest.raises(RuntimeError, match="planted bug"):
