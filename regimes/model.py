@@ -3,7 +3,7 @@
 A :class:`RegimeModel` is one xarray Dataset (selection, climatology
 coefficients, weights, EOFs, centroids / mixture parameters, names) stored as
 NetCDF, never pickle. The file carries a format version and a SHA-256
-checksum of its arrays, verified when it is loaded.
+checksum of its arrays and its settings attribute, verified when it is loaded.
 """
 
 from __future__ import annotations
@@ -20,7 +20,8 @@ from .eof import EOF
 from .errors import UserError
 from .stacking import Layout
 
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
+"""2: the checksum also covers the ``settings`` attribute."""
 
 
 def _canonical(values: np.ndarray) -> bytes:
@@ -33,8 +34,9 @@ def _canonical(values: np.ndarray) -> bytes:
 
 
 def checksum(ds: xr.Dataset) -> str:
-    """SHA-256 over the names, shapes and values of every variable, in sorted order."""
+    """SHA-256 over the ``settings`` attribute and the names, shapes and values of every variable, in sorted order."""
     h = hashlib.sha256()
+    h.update(str(ds.attrs.get("settings", "")).encode())
     for name in sorted(ds.variables):
         values = np.asarray(ds[name].values)
         h.update(name.encode())
@@ -126,7 +128,8 @@ class RegimeModel:
             raise UserError(f"model file '{path}' cannot be read ({err}); give a model.nc written by 'regimes run'") from None
         version = ds.attrs.get("model_format_version")
         if version != FORMAT_VERSION:
-            raise UserError(f"model file '{path}' has format version {version!r}, expected {FORMAT_VERSION}; refit the model with this version")
+            shown = "none" if version is None else str(version)
+            raise UserError(f"model file '{path}' has format version {shown}, expected {FORMAT_VERSION}; refit the model with this version")
         stored = ds.attrs.get("model_checksum")
         if stored != checksum(ds):
             raise UserError(f"model file '{path}' fails its checksum (corrupted or edited); refit or restore the model")
