@@ -354,12 +354,16 @@ def run(cfg: SimpleNamespace, config_text: str | None, output_dir: str | None = 
     attrs = output.provenance(command, config_text, prep.summary["files"])
     if found["scan"] is not None:
         attrs["k_selection"] = found["scan"].attrs["recommendation"]
+    return finish(results.assemble(found["cfg"], prep, found, attrs), folder, overwrite, cfg.figures, started)
+
+
+def finish(files: dict[str, xr.Dataset], folder: Path, overwrite: bool, style: SimpleNamespace, started: float) -> Path:
+    """Write the result files together, then draw the figures and the report from them (``style.draw``)."""
     with stage(f"writing results to {folder}"):
-        files = results.assemble(found["cfg"], prep, found, attrs)
         output.write_all(files, folder, overwrite)
-        output.remove_drawn(folder)  # figures of an earlier run in this folder would not show these results
-    if cfg.figures.draw:
-        draw(folder, cfg.figures)
+        output.remove_drawn(folder)  # figures of an earlier job in this folder would not show these results
+    if style.draw:
+        draw(folder, style)
     log.info("finished in %.1f s; results in %s", time.perf_counter() - started, folder)
     return folder
 
@@ -419,22 +423,16 @@ def assign(
         pcs = eof.transform(prep.anomaly).compute()  # named point: (sample x mode) PCs
         labels, correlation = leave_unassigned(clusterer.predict(pcs).values, pcs, clusterer.centroids_, cfg.regimes.unassigned_below)
     found = {"eof": eof, "pcs": pcs, "clusterer": clusterer, **describe(cfg, prep, pcs, labels, correlation)}
-    with stage(f"writing results to {folder}"):
-        attrs = output.provenance(command, config_text, prep.summary["files"])
-        attrs.update(
-            model_file=str(Path(model_path).resolve()),
-            model_checksum=model.dataset.attrs["model_checksum"],
-            climatology_source=cfg.assign.climatology,
-            climatology_comment=_climatology_comment(cfg.assign.climatology, prep.climatology_kind),
-        )
-        files = results.assemble(cfg, prep, found, attrs, results.ASSIGN_FILES)
-        files["labels.nc"].attrs["settings"] = json.dumps(assigned_settings(cfg, model))
-        output.write_all(files, folder, overwrite)
-        output.remove_drawn(folder)  # figures of an earlier job in this folder would not show these results
-    if cfg.figures.draw:
-        draw(folder, cfg.figures)
-    log.info("finished in %.1f s; results in %s", time.perf_counter() - started, folder)
-    return folder
+    attrs = output.provenance(command, config_text, prep.summary["files"])
+    attrs.update(
+        model_file=str(Path(model_path).resolve()),
+        model_checksum=model.dataset.attrs["model_checksum"],
+        climatology_source=cfg.assign.climatology,
+        climatology_comment=_climatology_comment(cfg.assign.climatology, prep.climatology_kind),
+    )
+    files = results.assemble(cfg, prep, found, attrs, results.ASSIGN_FILES)
+    files["labels.nc"].attrs["settings"] = json.dumps(assigned_settings(cfg, model))
+    return finish(files, folder, overwrite, cfg.figures, started)
 
 
 def assigned_settings(cfg: SimpleNamespace, model: RegimeModel) -> dict:
