@@ -41,25 +41,6 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 KS = list(range(2, 9))
 
-CONFIG = """\
-[data]
-paths = ["{path}"]
-variable = "psl"
-lat = [20.0, 80.0]
-lon = [-60.0, 40.0]
-months = [12, 1, 2]
-[anomalies]
-climatology = "daily"
-harmonics = 3
-[eof]
-weighting = "coslat"
-modes = 10
-[regimes]
-seed = 1
-[output]
-dir = "out"
-"""
-
 
 def build_pcs(workdir: Path, years: int) -> Path:
     """PCs of the benchmark grid (cached): the field via pipeline_vs_plain.build_inputs, then prepare + EOF."""
@@ -67,19 +48,16 @@ def build_pcs(workdir: Path, years: int) -> Path:
     if target.is_file():
         return target
     sys.path.insert(0, str(HERE))
-    from pipeline_vs_plain import build_inputs
+    from pipeline_vs_plain import CONFIG, build_inputs  # the same job, so the same PCs
 
     from regimes import config, pipeline
-    from regimes.eof import EOF
 
     data_path, _ = build_inputs(workdir, years, 0)
     job = workdir / "scan_bench.toml"
-    job.write_text(CONFIG.format(path=data_path))
+    job.write_text(CONFIG.format(path=data_path, solver=""))
     cfg, _ = config.load(job)
     prep = pipeline.prepare(cfg)
-    rng = np.random.default_rng(cfg.regimes.seed)
-    eof = EOF(cfg.eof.modes, cfg.eof.variance_fraction, cfg.eof.solver, seed=int(rng.integers(2**31 - 1))).fit(prep.anomaly, prep.weights)
-    pcs = eof.transform(prep.anomaly).compute()
+    _, pcs = pipeline.principal_components(cfg, prep, np.random.default_rng(cfg.regimes.seed))
     np.savez(target, pcs=pcs.values, segment_start=prep.segment_start, season_year=prep.season_year)
     return target
 
