@@ -31,6 +31,7 @@ from scipy.optimize import linear_sum_assignment
 from . import units
 from .conform import regrid
 from .errors import UserError
+from .finished import read_result
 from .model import RegimeModel
 
 log = logging.getLogger("regimes")
@@ -50,14 +51,6 @@ class RegimeSet:
     names: list[str]
     units: str | None
     inputs: list[str]
-
-
-def _open(path: Path) -> xr.Dataset:
-    try:
-        with xr.open_dataset(path, engine="netcdf4") as opened:
-            return opened.load()
-    except (OSError, ValueError, RuntimeError) as err:
-        raise UserError(f"'{path}' cannot be read ({err}); give an output folder of 'regimes run' or 'regimes assign', or a model.nc") from None
 
 
 def model_patterns(model: RegimeModel) -> xr.DataArray:
@@ -80,7 +73,7 @@ def read(path: str | Path) -> RegimeSet:
         missing = [name for name in ("composites.nc", "statistics.nc") if not (path / name).is_file()]
         if missing:
             raise UserError(f"folder '{path}' has no {' or '.join(missing)}; give an output folder of 'regimes run' or 'regimes assign', or a model.nc")
-        comp, stat = _open(path / "composites.nc"), _open(path / "statistics.nc")
+        comp, stat = read_result(path / "composites.nc"), read_result(path / "statistics.nc")
         patterns = comp["anomaly_composite"]
         regimes = patterns["regime"].values
         return RegimeSet(

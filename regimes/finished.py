@@ -63,7 +63,8 @@ class Finished:
         return ds.attrs.get("config")
 
 
-def _read(path: Path) -> xr.Dataset:
+def read_result(path: Path) -> xr.Dataset:
+    """One result file loaded into memory; a file that cannot be read or was not written by regimes is a UserError."""
     try:
         with xr.open_dataset(path, engine="netcdf4") as opened:
             ds = opened.load()
@@ -90,7 +91,7 @@ def _is_assignment(folder: Path, present: list[str]) -> bool:
         with xr.open_dataset(folder / "labels.nc", engine="netcdf4") as labels:
             return "model_file" in labels.attrs
     except (OSError, ValueError, RuntimeError):
-        return True  # an assignment's damaged labels.nc: _read names it
+        return True  # an assignment's damaged labels.nc: read_result names it
 
 
 def open_folder(folder: str | Path) -> Finished:
@@ -112,9 +113,9 @@ def open_folder(folder: str | Path) -> Finished:
         raise UserError(f"'{folder}' is not a finished run (missing {missing}); give the output folder of a finished 'regimes run', 'regimes assign' or 'regimes scan'")
     found = Finished(folder, kind)
     for name in RUN_FILES if kind == "run" else ASSIGN_FILES if kind == "assignment" else ():
-        setattr(found, name[:-3], _read(folder / name))
+        setattr(found, name[:-3], read_result(folder / name))
     if kind == "assignment" and "settings" not in found.labels.attrs:
         raise UserError(f"'{folder / 'labels.nc'}' records no settings; rerun the 'regimes assign' that wrote it")
     if scan is not None:
-        found.scan, found.scan_folder = _read(scan), scan.parent
+        found.scan, found.scan_folder = read_result(scan), scan.parent
     return found
