@@ -18,9 +18,8 @@ from pathlib import Path
 import xarray as xr
 
 from .errors import UserError
+from .output import ASSIGN_FILES, RUN_FILES
 
-RUN_FILES = ("labels.nc", "composites.nc", "statistics.nc", "eofs.nc", "model.nc")
-ASSIGN_FILES = RUN_FILES[:3]
 SCAN_FILE = "scan.nc"
 CHECK = {"labels.nc": "label", "composites.nc": "anomaly_composite", "statistics.nc": "frequency", "eofs.nc": "eof",
          "model.nc": "centroid", SCAN_FILE: "classifiability"}

@@ -187,7 +187,11 @@ def remove_drawn(folder: Path) -> None:
             path.unlink()
 
 
-RESULT_FILES = frozenset({"labels.nc", "composites.nc", "statistics.nc", "eofs.nc", "model.nc", "scan.nc"})
+RUN_FILES = ("labels.nc", "composites.nc", "statistics.nc", "eofs.nc", "model.nc")
+"""The result files of ``regimes run``; an assignment writes the first three."""
+ASSIGN_FILES = RUN_FILES[:3]
+
+RESULT_FILES = frozenset({*RUN_FILES, "scan.nc"})
 """The NetCDF files a run or an assignment may write; with ``--overwrite`` those of an earlier run that
 the new one does not write are removed, and no other file."""
 

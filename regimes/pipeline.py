@@ -430,7 +430,7 @@ def assign(
         climatology_source=cfg.assign.climatology,
         climatology_comment=_climatology_comment(cfg.assign.climatology, prep.climatology_kind),
     )
-    files = results.assemble(cfg, prep, found, attrs, results.ASSIGN_FILES)
+    files = results.assemble(cfg, prep, found, attrs, output.ASSIGN_FILES)
     files["labels.nc"].attrs["settings"] = json.dumps(assigned_settings(cfg, model))
     return finish(files, folder, overwrite, cfg.figures, started)
 

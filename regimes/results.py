@@ -19,10 +19,7 @@ import xarray as xr
 from . import stats
 from .cluster import UNASSIGNED
 from .model import RegimeModel
-from .output import coordinate_attrs, flag_meanings
-
-RUN_FILES = ("labels.nc", "composites.nc", "statistics.nc", "eofs.nc", "model.nc")
-ASSIGN_FILES = ("labels.nc", "composites.nc", "statistics.nc")
+from .output import RUN_FILES, coordinate_attrs, flag_meanings
 
 
 def regime_names(cfg: SimpleNamespace) -> list[str]:

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from regimes import cli, config, pipeline, results, synthetic
+from regimes import cli, config, output, pipeline, results, synthetic
 from regimes.model import RegimeModel
 
 LAT = np.arange(30.0, 61.0, 1.0)  # a 1-degree grid
@@ -78,7 +78,7 @@ def test_assigning_the_fitting_data_reproduces_the_run(planted, tmp_path, capsys
         with xr.open_dataset(fit / name) as a, xr.open_dataset(tmp_path / "again" / name) as b:
             for var in a.data_vars:
                 np.testing.assert_array_equal(a[var].values, b[var].values, err_msg=f"{name}:{var}")
-    assert {p.name for p in (tmp_path / "again").glob("*.nc")} == set(results.ASSIGN_FILES)  # figures and report beside them
+    assert {p.name for p in (tmp_path / "again").glob("*.nc")} == set(output.ASSIGN_FILES)  # figures and report beside them
     assert again.attrs["climatology_source"] == "model"
     assert again.attrs["model_checksum"] == RegimeModel.load(fit / "model.nc").dataset.attrs["model_checksum"]
 
