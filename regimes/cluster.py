@@ -14,6 +14,7 @@ import numpy as np
 import xarray as xr
 
 from .errors import UserError
+from .lloyd import lloyd
 
 UNASSIGNED = 0
 """Label of a day left out of every regime (pattern correlation below the threshold)."""
@@ -60,19 +61,6 @@ def _float32_distances(x32: np.ndarray, centres: np.ndarray) -> np.ndarray:
     return np.maximum(d2, 0.0, out=d2)
 
 
-def _nearest(d2: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Index (the first, on ties) and value of the smallest entry along axis 1 of ``d2`` (r, k, n).
-
-    Same result as ``argmin`` along axis 1, faster for small k: one
-    reduction, then one vectorised comparison per centre.
-    """
-    best = d2.min(axis=1)
-    index = np.full(best.shape, d2.shape[1] - 1, dtype=np.intp)
-    for j in range(d2.shape[1] - 2, -1, -1):
-        np.copyto(index, j, where=d2[:, j] == best)
-    return index, best
-
-
 def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Generator) -> np.ndarray:
     """Greedy k-means++ seeding (Arthur & Vassilvitskii 2007), all restarts at once.
 
@@ -104,72 +92,12 @@ def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Genera
     return x[chosen]
 
 
-def batched_lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300, tol: float = 1e-10):
-    """Lloyd iterations for many restarts at once.
-
-    Distances to the centres are float32 matrix products; centroid sums are
-    accumulated in float64. The final labels and inertia are recomputed in
-    float64. Working memory is about ``restarts * n * (k * 4 + 8)`` bytes.
-
-    Parameters
-    ----------
-    x : array (n, d)
-    centres : array (r, k, d)
-        Initial centres of each restart.
-
-    Returns
-    -------
-    centres : array (r, k, d)
-    labels : array (r, n)
-    inertia : array (r,)
-        Within-cluster sum of squared distances of each restart.
-    """
-    r, k, d = centres.shape
-    n = x.shape[0]
-    x32 = np.ascontiguousarray(x, dtype=np.float32)
-    norms = (x**2).sum(1)
-    threshold = tol * max(1.0, float(norms.sum()))
-    centres = centres.copy()
-    active = np.ones(r, dtype=bool)
-    labels = np.zeros((r, n), dtype=np.intp)
-    for _ in range(max_iterations):
-        index = np.flatnonzero(active)
-        m = index.size
-        old = centres[index]
-        # |x|^2 is the same for every centre, so it is left out of the nearest-centre search
-        d2 = np.matmul((-2 * old).astype(np.float32), x32.T)
-        d2 += (old**2).sum(2).astype(np.float32)[:, :, None]
-        new, nearest = _nearest(d2)
-        counts, sums = np.empty((m, k)), np.empty((m, k, d))
-        for j in range(k):  # float64 indicator products: exact float64 sums, at matrix-product speed
-            member = (new == j).astype(np.float64)
-            counts[:, j] = member.sum(1)
-            sums[:, j] = member @ x
-        updated = np.where(counts[:, :, None] > 0, sums / np.maximum(counts, 1)[:, :, None], old)
-        empty = counts == 0
-        if empty.any():
-            far = (nearest + norms).argmax(1)
-            rows, cols = np.nonzero(empty)
-            updated[rows, cols] = x[far[rows]]
-        shift = ((updated - old) ** 2).sum((1, 2))
-        unchanged = (new == labels[index]).all(1)
-        centres[index] = updated
-        labels[index] = new
-        active[index[unchanged | (shift <= threshold)]] = False
-        if not active.any():
-            break
-    d2 = squared_distances(x, centres)
-    labels = d2.argmin(2)
-    inertia = np.take_along_axis(d2, labels[:, :, None], 2)[:, :, 0].sum(1)
-    return centres, labels, inertia
-
-
 class KMeansRegimes:
     """k-means regimes in PC space with many seeded restarts.
 
-    Restarts are seeded by k-means++ and run together (vectorised over
-    restarts); the restart with the smallest within-cluster sum of squares is
-    kept. Regime analysis with k-means on leading PCs: Michelangeli, Vautard &
+    Restarts are seeded together by k-means++ (vectorised over restarts) and
+    iterated by the compiled Lloyd kernel (:mod:`regimes.lloyd`); the restart
+    with the smallest within-cluster sum of squares is kept. Regime analysis with k-means on leading PCs: Michelangeli, Vautard &
     Legras (1995), J. Atmos. Sci. 52, 1237-1256.
 
     Parameters
@@ -206,7 +134,7 @@ class KMeansRegimes:
         x = _as_matrix(pcs)
         _check_enough(x.shape[0], self.k)
         start = kmeans_plus_plus(x, self.k, self.restarts, self.rng)
-        centres, labels, inertia = batched_lloyd(x, start, self.max_iterations)
+        centres, labels, inertia = lloyd(x, start, self.max_iterations)
         best = int(np.argmin(inertia))
         order = _frequency_order(labels[best], centres[best])
         self.centroids_ = xr.DataArray(

@@ -17,10 +17,10 @@ restarts (the batched k-means of :mod:`regimes.cluster`) and reports
   bootstrap resamples of season-years.
 
 :func:`recommend` applies the rule stated in :data:`RULE`. Surrogates run in
-parallel over a thread pool (numpy releases the GIL in its matrix products);
-each surrogate has its own generator spawned from one
-:class:`numpy.random.SeedSequence`, so results do not depend on the number of
-workers.
+parallel over a thread pool (the compiled Lloyd kernel and numpy's matrix
+products release the GIL); each surrogate has its own generator spawned from
+one :class:`numpy.random.SeedSequence`, so results do not depend on the
+number of workers.
 """
 
 from __future__ import annotations
@@ -33,8 +33,9 @@ import xarray as xr
 from scipy.optimize import linear_sum_assignment
 from threadpoolctl import threadpool_limits
 
-from .cluster import GaussianMixtureRegimes, batched_lloyd, kmeans_plus_plus
+from .cluster import GaussianMixtureRegimes, kmeans_plus_plus
 from .errors import UserError
+from .lloyd import lloyd
 
 STABLE = 0.9
 """Split-half stability at or above which a k counts as stable in the rule."""
@@ -125,9 +126,9 @@ def classifiability(centres: np.ndarray) -> float:
 
 
 def restart_fits(x: np.ndarray, k: int, restarts: int, rng: np.random.Generator, max_iterations: int = 300):
-    """All k-means++ restarts of k-means at once (:mod:`regimes.cluster`): centres (r, k, d), labels, inertia."""
+    """k-means from ``restarts`` k-means++ seedings (:mod:`regimes.cluster`, :mod:`regimes.lloyd`): centres (r, k, d), labels, inertia."""
     start = kmeans_plus_plus(x, k, restarts, rng)
-    return batched_lloyd(x, start, max_iterations)
+    return lloyd(x, start, max_iterations)
 
 
 # --------------------------------------------------------------------------

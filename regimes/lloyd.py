@@ -1,0 +1,237 @@
+"""Compiled Lloyd iterations for k-means, with Hamerly's distance bounds.
+
+Lloyd's algorithm (Lloyd 1982, IEEE Trans. Inf. Theory 28, 129-137)
+alternates between assigning every point to its nearest centre and moving
+every centre to the mean of its points, until no assignment changes. Hamerly
+(2010, "Making k-means even faster", Proc. SIAM Int. Conf. Data Mining,
+130-140) gives the same iterates while skipping most distance computations:
+each point keeps an upper bound on the distance to its own centre and a lower
+bound on the distance to every other centre; a point whose upper bound is
+below both its lower bound and half the distance from its centre to the
+nearest other centre cannot change cluster.
+
+Each iteration first sorts out, point by point, which points the bounds
+cannot settle (the candidates); their distances to every centre are then
+computed in one pass vectorised over candidates. The kernels are compiled by
+numba and release the GIL, so fits run in parallel on threads. Distances are
+float64 and no fast-math reordering is used, so the iterates are the exact
+Lloyd iterates and the same input always gives the same result.
+"""
+
+from __future__ import annotations
+
+import numba
+import numpy as np
+
+
+@numba.njit(nogil=True, cache=True)
+def _distance(x, i, centres, j):
+    """Euclidean distance from point ``x[i]`` to ``centres[j]``."""
+    s = 0.0
+    for t in range(x.shape[1]):
+        diff = x[i, t] - centres[j, t]
+        s += diff * diff
+    return np.sqrt(s)
+
+
+@numba.njit(nogil=True, cache=True)
+def _candidate_distances(columns, candidates, m, centres, gathered, d2):
+    """``d2[j, q]`` = squared distance from centre j to point ``candidates[q]``, for q < m.
+
+    ``columns`` is the data transposed (d, n); the candidates' columns are
+    gathered into ``gathered`` (d, n) first, so the inner loop is contiguous.
+    """
+    d, k = columns.shape[0], centres.shape[0]
+    for t in range(d):
+        for q in range(m):
+            gathered[t, q] = columns[t, candidates[q]]
+    for j in range(k):
+        for q in range(m):
+            d2[j, q] = 0.0
+        for t in range(d):
+            c = centres[j, t]
+            for q in range(m):
+                diff = gathered[t, q] - c
+                d2[j, q] += diff * diff
+
+
+@numba.njit(nogil=True, cache=True)
+def _two_nearest(d2, m, index, best, second):
+    """For each candidate q < m: nearest centre (the first, on ties) and the squared distances to the nearest two."""
+    for q in range(m):
+        index[q], best[q], second[q] = 0, d2[0, q], np.inf
+    for j in range(1, d2.shape[0]):
+        for q in range(m):
+            s = d2[j, q]
+            if s < best[q]:
+                second[q], best[q], index[q] = best[q], s, j
+            elif s < second[q]:
+                second[q] = s
+
+
+@numba.njit(nogil=True, cache=True)
+def _nearest_of_candidates(columns, centres, candidates, m, scratch):
+    """Nearest centre and the two smallest squared distances of ``candidates[:m]``, into ``scratch``."""
+    gathered, d2, index, best, second = scratch
+    _candidate_distances(columns, candidates, m, centres, gathered, d2)
+    _two_nearest(d2, m, index, best, second)
+
+
+@numba.njit(nogil=True, cache=True)
+def _assign_all(x, columns, centres, labels, upper, lower, counts, sums, candidates, scratch):
+    """Every point to its nearest centre, both bounds exact, cluster counts and sums from scratch."""
+    n = x.shape[0]
+    for i in range(n):
+        candidates[i] = i
+    _nearest_of_candidates(columns, centres, candidates, n, scratch)
+    index, best, second = scratch[2], scratch[3], scratch[4]
+    counts[:] = 0.0
+    sums[:] = 0.0
+    for i in range(n):
+        j = index[i]
+        labels[i] = j
+        upper[i] = np.sqrt(best[i])
+        lower[i] = np.sqrt(second[i])
+        counts[j] += 1.0
+        for t in range(x.shape[1]):
+            sums[j, t] += x[i, t]
+
+
+@numba.njit(nogil=True, cache=True)
+def _relocate_empty(x, centres, labels, counts):
+    """Move each empty cluster's centre onto the point farthest from its own centre; True if any was empty."""
+    moved = False
+    for j in range(centres.shape[0]):
+        if counts[j] > 0:
+            continue
+        far, distance = 0, -1.0
+        for i in range(x.shape[0]):
+            if counts[labels[i]] <= 1.0:  # keep every other cluster non-empty
+                continue
+            s = _distance(x, i, centres, labels[i])
+            if s > distance:
+                far, distance = i, s
+        counts[labels[far]] -= 1.0
+        labels[far] = j
+        counts[j] = 1.0
+        centres[j] = x[far]
+        moved = True
+    return moved
+
+
+@numba.njit(nogil=True, cache=True)
+def _move_centres(centres, counts, sums, step, half):
+    """Centres to the means of their points; ``step[j]`` how far centre j moved, ``half[j]`` half the distance to its nearest other centre."""
+    k, d = centres.shape
+    for j in range(k):
+        s = 0.0
+        for t in range(d):
+            new = sums[j, t] / counts[j]
+            diff = new - centres[j, t]
+            s += diff * diff
+            centres[j, t] = new
+        step[j] = np.sqrt(s)
+    for j in range(k):
+        nearest = np.inf
+        for m in range(k):
+            if m != j:
+                s = 0.0
+                for t in range(d):
+                    diff = centres[j, t] - centres[m, t]
+                    s += diff * diff
+                nearest = min(nearest, s)
+        half[j] = 0.5 * np.sqrt(nearest)
+
+
+@numba.njit(nogil=True, cache=True)
+def _fit_one(x, columns, centres, labels, max_iterations):
+    """Lloyd iterations with Hamerly's bounds, in place on ``centres`` (k, d) and ``labels`` (n); returns the inertia."""
+    n, d = x.shape
+    k = centres.shape[0]
+    upper, lower = np.empty(n), np.empty(n)
+    counts, sums = np.empty(k), np.empty((k, d))
+    step, half = np.empty(k), np.empty(k)
+    candidates = np.empty(n, dtype=np.intp)
+    scratch = (np.empty((d, n)), np.empty((k, n)), np.empty(n, dtype=np.intp), np.empty(n), np.empty(n))
+    index, best, second = scratch[2], scratch[3], scratch[4]
+    _assign_all(x, columns, centres, labels, upper, lower, counts, sums, candidates, scratch)
+    for _ in range(max_iterations):
+        if _relocate_empty(x, centres, labels, counts):
+            _assign_all(x, columns, centres, labels, upper, lower, counts, sums, candidates, scratch)
+            continue
+        _move_centres(centres, counts, sums, step, half)
+        largest, runner_up, far = 0.0, 0.0, 0
+        for j in range(k):
+            if step[j] > largest:
+                runner_up, largest, far = largest, step[j], j
+            elif step[j] > runner_up:
+                runner_up = step[j]
+        # the bounds follow the centres; a point they cannot settle is a candidate
+        m = 0
+        for i in range(n):
+            a = labels[i]
+            upper[i] += step[a]
+            lower[i] -= runner_up if a == far else largest
+            if upper[i] > max(half[a], lower[i]):
+                candidates[m] = i
+                m += 1
+        _nearest_of_candidates(columns, centres, candidates, m, scratch)
+        changed = 0
+        for q in range(m):
+            i = candidates[q]
+            j, a = index[q], labels[i]
+            upper[i] = np.sqrt(best[q])
+            lower[i] = np.sqrt(second[q])
+            if j != a:
+                labels[i] = j
+                counts[a] -= 1.0
+                counts[j] += 1.0
+                for t in range(d):
+                    sums[a, t] -= x[i, t]
+                    sums[j, t] += x[i, t]
+                changed += 1
+        if changed == 0:
+            break
+    inertia = 0.0
+    for i in range(n):
+        s = _distance(x, i, centres, labels[i])
+        inertia += s * s
+    return inertia
+
+
+@numba.njit(nogil=True, cache=True)
+def _fit_all(x, columns, centres, labels, inertia, max_iterations):
+    for r in range(centres.shape[0]):
+        inertia[r] = _fit_one(x, columns, centres[r], labels[r], max_iterations)
+
+
+def lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300):
+    """Lloyd's k-means from each of several sets of initial centres, until no assignment changes.
+
+    Parameters
+    ----------
+    x : array (n, d)
+        The points (PCs: samples by modes).
+    centres : array (r, k, d)
+        Initial centres of each of r restarts.
+    max_iterations : int
+        Assignment steps per restart at most, after the first.
+
+    Returns
+    -------
+    centres : array (r, k, d)
+        Final centres: the means of their points when the restart converged.
+    labels : array (r, n) of intp
+        Nearest final centre of each point (0..k-1; the first, on ties).
+    inertia : array (r,)
+        Within-cluster sum of squared distances of each restart.
+
+    An empty cluster's centre is moved onto the point farthest from its own
+    centre (common practice; scikit-learn does the same).
+    """
+    x = np.ascontiguousarray(x, dtype=np.float64)
+    centres = np.array(centres, dtype=np.float64, order="C")
+    labels = np.empty((centres.shape[0], x.shape[0]), dtype=np.intp)
+    inertia = np.empty(centres.shape[0])
+    _fit_all(x, np.ascontiguousarray(x.T), centres, labels, inertia, int(max_iterations))
+    return centres, labels, inertia

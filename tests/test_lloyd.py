@@ -1,0 +1,126 @@
+"""Tests of the compiled k-means (regimes/lloyd.py) and of the k-means regimes built on it (regimes/cluster.py)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import xarray as xr
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from sklearn.cluster import KMeans
+from sklearn.datasets import make_blobs
+from sklearn.metrics import adjusted_rand_score
+
+from regimes.cluster import KMeansRegimes, kmeans_plus_plus
+from regimes.lloyd import lloyd
+
+
+def textbook_lloyd(x, centres, max_iterations=300):
+    """Lloyd's algorithm as defined (Lloyd 1982, IEEE Trans. Inf. Theory 28, 129-137), without any bounds:
+    every point to its nearest centre, every centre to the mean of its points, until no point changes centre."""
+    centres = centres.copy()
+    labels = ((x[:, None, :] - centres[None]) ** 2).sum(2).argmin(1)
+    for _ in range(max_iterations):
+        centres = np.stack([x[labels == j].mean(0) for j in range(centres.shape[0])])
+        new = ((x[:, None, :] - centres[None]) ** 2).sum(2).argmin(1)
+        if (new == labels).all():
+            break
+        labels = new
+    return centres, labels
+
+
+def red_noise(n, d, phi, seed):
+    """AR(1) series per column, x[t] = phi x[t-1] + sqrt(1 - phi^2) e[t]: data with no clusters, where k-means converges slowly."""
+    rng = np.random.default_rng(seed)
+    x = np.empty((n, d))
+    x[0] = rng.standard_normal(d)
+    for t in range(1, n):
+        x[t] = phi * x[t - 1] + np.sqrt(1 - phi**2) * rng.standard_normal(d)
+    return x * np.linspace(3.0, 1.0, d)
+
+
+def as_pcs(x):
+    return xr.DataArray(x, dims=("sample", "mode"), coords={"mode": np.arange(1, x.shape[1] + 1)})
+
+
+@pytest.mark.parametrize("k", [2, 4, 7])
+def test_same_iterates_as_the_textbook_algorithm_on_red_noise(k):
+    x = red_noise(1500, 6, 0.8, seed=k)
+    start = kmeans_plus_plus(x, k, 4, np.random.default_rng(k))
+    centres, labels, inertia = lloyd(x, start)
+    for r in range(4):
+        want_centres, want_labels = textbook_lloyd(x, start[r])
+        np.testing.assert_array_equal(labels[r], want_labels)
+        np.testing.assert_allclose(centres[r], want_centres, rtol=0, atol=1e-10)
+        assert inertia[r] == pytest.approx(((x - want_centres[want_labels]) ** 2).sum(), rel=1e-12)
+
+
+def test_same_result_as_scikit_learn_from_the_same_start():
+    # scikit-learn's KMeans (reference library), Lloyd's algorithm from given centres, run to full convergence
+    x = red_noise(2000, 8, 0.9, seed=3)
+    start = kmeans_plus_plus(x, 5, 3, np.random.default_rng(3))
+    centres, labels, inertia = lloyd(x, start)
+    for r in range(3):
+        reference = KMeans(n_clusters=5, init=start[r], n_init=1, algorithm="lloyd", tol=0.0, max_iter=300).fit(x)
+        np.testing.assert_array_equal(labels[r], reference.labels_)
+        np.testing.assert_allclose(centres[r], reference.cluster_centers_, rtol=0, atol=1e-8)
+        assert inertia[r] == pytest.approx(reference.inertia_, rel=1e-9)
+
+
+def test_well_separated_clusters_match_scikit_learn():
+    # issue criterion: best within-cluster sum of squares <= scikit-learn KMeans' (1e-6 relative), labels ARI >= 0.999
+    x, truth = make_blobs(n_samples=3000, centers=5, n_features=10, cluster_std=1.0, random_state=7)
+    ours = KMeansRegimes(k=5, restarts=20, rng=np.random.default_rng(7)).fit(as_pcs(x))
+    reference = KMeans(n_clusters=5, n_init=20, random_state=7).fit(x)
+    assert ours.inertia_ <= reference.inertia_ * (1 + 1e-6)
+    assert adjusted_rand_score(reference.labels_, ours.labels_.values) >= 0.999
+    assert adjusted_rand_score(truth, ours.labels_.values) >= 0.999
+
+
+def test_same_seed_same_result_other_seed_other_starts():
+    x = red_noise(1200, 5, 0.7, seed=9)
+    a = KMeansRegimes(k=4, restarts=10, rng=np.random.default_rng(42)).fit(as_pcs(x))
+    b = KMeansRegimes(k=4, restarts=10, rng=np.random.default_rng(42)).fit(as_pcs(x))
+    np.testing.assert_array_equal(a.centroids_.values, b.centroids_.values)
+    np.testing.assert_array_equal(a.labels_.values, b.labels_.values)
+    assert a.inertia_ == b.inertia_
+    one = kmeans_plus_plus(x, 4, 10, np.random.default_rng(42))
+    other = kmeans_plus_plus(x, 4, 10, np.random.default_rng(43))
+    assert not np.array_equal(one, other)
+
+
+def test_an_empty_cluster_is_moved_onto_the_farthest_point():
+    x = np.concatenate([np.random.default_rng(0).normal(size=(200, 2)), [[8.0, 8.0]]])
+    start = np.array([[[0.0, 0.0], [0.5, 0.0], [100.0, 100.0]]])  # the third centre is nearest to no point
+    centres, labels, inertia = lloyd(x, start)
+    assert np.bincount(labels[0], minlength=3).min() >= 1
+    np.testing.assert_array_equal(labels[0], textbook_lloyd(x, centres[0])[1])  # a fixed point of Lloyd's iteration
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    n=st.integers(10, 120),
+    d=st.integers(1, 6),
+    k=st.integers(2, 6),
+    seed=st.integers(0, 2**31 - 1),
+    duplicates=st.booleans(),
+)
+def test_converged_fits_are_fixed_points(n, d, k, seed, duplicates):
+    # at convergence every point is at its nearest centre and every centre is the mean of its points (definition)
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=(n, d))
+    if duplicates:
+        x = np.round(x, 0)  # many equal points and ties
+    k = min(k, np.unique(x, axis=0).shape[0])
+    if k < 2:
+        return
+    start = kmeans_plus_plus(x, k, 3, rng)
+    centres, labels, inertia = lloyd(x, start, max_iterations=1000)
+    for r in range(3):
+        d2 = ((x[:, None, :] - centres[r][None]) ** 2).sum(2)
+        assert (d2[np.arange(n), labels[r]] <= d2.min(1) + 1e-9).all()
+        counts = np.bincount(labels[r], minlength=k)
+        assert counts.min() >= 1
+        means = np.stack([x[labels[r] == j].mean(0) for j in range(k)])
+        np.testing.assert_allclose(centres[r], means, atol=1e-9)
+        assert inertia[r] == pytest.approx(d2[np.arange(n), labels[r]].sum(), rel=1e-9, abs=1e-9)
