@@ -14,7 +14,7 @@ import numpy as np
 import xarray as xr
 
 from .errors import UserError
-from .lloyd import lloyd
+from .kmeans import kmeans_plus_plus, lloyd
 
 UNASSIGNED = 0
 """Label of a day left out of every regime (pattern correlation below the threshold)."""
@@ -54,51 +54,14 @@ def squared_distances(x: np.ndarray, centres: np.ndarray) -> np.ndarray:
     return np.maximum(d2, 0.0)
 
 
-def _float32_distances(x32: np.ndarray, centres: np.ndarray) -> np.ndarray:
-    """Squared distances (r, m, n) from centres (r, m, d) to the rows of ``x32`` (n, d), float32, clipped at 0."""
-    c = centres.astype(np.float32)
-    d2 = (x32**2).sum(1)[None, None, :] - 2 * np.matmul(c, x32.T) + (c**2).sum(2)[:, :, None]
-    return np.maximum(d2, 0.0, out=d2)
-
-
-def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Generator) -> np.ndarray:
-    """Greedy k-means++ seeding (Arthur & Vassilvitskii 2007), all restarts at once.
-
-    Each new centre is the best of ``2 + floor(ln k)`` candidates drawn with
-    probability proportional to the squared distance to the nearest chosen
-    centre: the one that most lowers the summed squared distances (the greedy
-    variant, as in scikit-learn), which avoids most poor local minima.
-    Distances are float32; their sums float64.
-
-    Returns
-    -------
-    array (restarts, k, d) of initial centres picked among the rows of ``x``.
-    """
-    n = x.shape[0]
-    x32 = np.ascontiguousarray(x, dtype=np.float32)
-    trials = 2 + int(np.log(k))
-    every = np.arange(restarts)
-    chosen = np.empty((restarts, k), dtype=np.intp)
-    chosen[:, 0] = rng.integers(n, size=restarts)
-    closest = _float32_distances(x32, x[chosen[:, :1]])[:, 0]
-    for j in range(1, k):
-        cumulative = np.cumsum(closest, axis=1, dtype=np.float64)
-        draw = rng.random((restarts, trials)) * cumulative[:, -1:]
-        candidates = np.minimum((cumulative[:, None, :] < draw[:, :, None]).sum(2), n - 1)
-        reduced = np.minimum(closest[:, None, :], _float32_distances(x32, x[candidates]))
-        best = reduced.sum(2, dtype=np.float64).argmin(1)
-        chosen[:, j] = candidates[every, best]
-        closest = reduced[every, best]
-    return x[chosen]
-
-
 class KMeansRegimes:
     """k-means regimes in PC space with many seeded restarts.
 
-    Restarts are seeded together by k-means++ (vectorised over restarts) and
-    iterated by the compiled Lloyd kernel (:mod:`regimes.lloyd`); the restart
-    with the smallest within-cluster sum of squares is kept. Regime analysis with k-means on leading PCs: Michelangeli, Vautard &
-    Legras (1995), J. Atmos. Sci. 52, 1237-1256.
+    Restarts are seeded by greedy k-means++ and iterated by Lloyd's algorithm
+    to convergence, both compiled (:mod:`regimes.kmeans`); the restart with the
+    smallest within-cluster sum of squares is kept. Regime analysis with
+    k-means on leading PCs: Michelangeli, Vautard & Legras (1995), J. Atmos.
+    Sci. 52, 1237-1256.
 
     Parameters
     ----------

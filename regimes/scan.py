@@ -33,9 +33,9 @@ import xarray as xr
 from scipy.optimize import linear_sum_assignment
 from threadpoolctl import threadpool_limits
 
-from .cluster import GaussianMixtureRegimes, kmeans_plus_plus
+from .cluster import GaussianMixtureRegimes
 from .errors import UserError
-from .lloyd import lloyd
+from .kmeans import kmeans_plus_plus, lloyd
 
 STABLE = 0.9
 """Split-half stability at or above which a k counts as stable in the rule."""
@@ -47,9 +47,8 @@ RULE = (
 )
 
 TIE = 1e-4
-"""Indices closer than this count as tied (Lloyd convergence leaves differences of this order between restarts that
-found the same partition); an observed index tied with the surrogates' quantile is not significant
-(at small k both are often 1 up to rounding)."""
+"""Indices closer than this count as tied; an observed index tied with the surrogates' quantile is not
+significant (at small k both are often 1 up to rounding)."""
 
 SILHOUETTE_SAMPLES = 3000
 """Silhouettes are computed on a seeded subsample of this many samples at most."""
@@ -126,7 +125,7 @@ def classifiability(centres: np.ndarray) -> float:
 
 
 def restart_fits(x: np.ndarray, k: int, restarts: int, rng: np.random.Generator, max_iterations: int = 300):
-    """k-means from ``restarts`` k-means++ seedings (:mod:`regimes.cluster`, :mod:`regimes.lloyd`): centres (r, k, d), labels, inertia."""
+    """k-means from ``restarts`` k-means++ seedings (:mod:`regimes.kmeans`): centres (r, k, d), labels, inertia."""
     start = kmeans_plus_plus(x, k, restarts, rng)
     return lloyd(x, start, max_iterations)
 

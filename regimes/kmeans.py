@@ -1,4 +1,9 @@
-"""Compiled Lloyd iterations for k-means, with Hamerly's distance bounds.
+"""Compiled k-means: k-means++ seeding, and Lloyd iterations with Hamerly's distance bounds.
+
+Seeding is the greedy k-means++ of Arthur & Vassilvitskii (2007, Proc.
+ACM-SIAM Symp. Discrete Algorithms, 1027-1035): each new centre is the best
+of a few candidate points drawn with probability proportional to the squared
+distance to the nearest centre already chosen.
 
 Lloyd's algorithm (Lloyd 1982, IEEE Trans. Inf. Theory 28, 129-137)
 alternates between assigning every point to its nearest centre and moving
@@ -14,8 +19,9 @@ Each iteration first sorts out, point by point, which points the bounds
 cannot settle (the candidates); their distances to every centre are then
 computed in one pass vectorised over candidates. The kernels are compiled by
 numba and release the GIL, so fits run in parallel on threads. Distances are
-float64 and no fast-math reordering is used, so the iterates are the exact
-Lloyd iterates and the same input always gives the same result.
+float64 (in compiled loops float32 is not faster here) and no fast-math
+reordering is used, so the iterates are the exact Lloyd iterates and the same
+input always gives the same result.
 """
 
 from __future__ import annotations
@@ -35,16 +41,95 @@ def _distance(x, i, centres, j):
 
 
 @numba.njit(nogil=True, cache=True)
-def _candidate_distances(columns, candidates, m, centres, gathered, d2):
+def _to_point(columns, p, out):
+    """``out[i]`` = squared distance from point i to point p; ``columns`` is the data transposed (d, n)."""
+    out[:] = 0.0
+    for t in range(columns.shape[0]):
+        c = columns[t, p]
+        for i in range(columns.shape[1]):
+            diff = columns[t, i] - c
+            out[i] += diff * diff
+
+
+@numba.njit(nogil=True, cache=True)
+def _seed_one(columns, first, draws, chosen, closest, cumulative, trial):
+    """Greedy k-means++ for one restart: ``chosen`` (k) indices of the points picked as centres.
+
+    ``draws`` (k - 1, trials) are uniform numbers in [0, 1); candidate s for centre j is the
+    first point whose cumulative squared distance reaches ``draws[j - 1, s]`` times the total.
+    """
+    n = columns.shape[1]
+    chosen[0] = first
+    _to_point(columns, first, closest)
+    for j in range(1, chosen.size):
+        total = 0.0
+        for i in range(n):
+            total += closest[i]
+            cumulative[i] = total
+        best_sum, best = np.inf, 0
+        for s in range(draws.shape[1]):
+            candidate = min(np.searchsorted(cumulative, draws[j - 1, s] * total), n - 1)
+            _to_point(columns, candidate, trial[s])
+            reduced = 0.0
+            for i in range(n):
+                trial[s, i] = min(trial[s, i], closest[i])
+                reduced += trial[s, i]
+            if reduced < best_sum:
+                best_sum, best, chosen[j] = reduced, s, candidate
+        closest[:] = trial[best]
+
+
+@numba.njit(nogil=True, cache=True)
+def _seed_all(columns, first, draws, chosen):
+    n = columns.shape[1]
+    closest, cumulative = np.empty(n), np.empty(n)
+    trial = np.empty((draws.shape[2], n))
+    for r in range(first.size):
+        _seed_one(columns, first[r], draws[:, r], chosen[r], closest, cumulative, trial)
+
+
+def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Generator) -> np.ndarray:
+    """Greedy k-means++ seeding (Arthur & Vassilvitskii 2007) of many restarts.
+
+    The first centre of each restart is a point drawn uniformly. Each next
+    centre is the best of ``2 + floor(ln k)`` candidates drawn with probability
+    proportional to the squared distance to the nearest chosen centre: the one
+    that most lowers the summed squared distances (the greedy variant, as in
+    scikit-learn), which avoids most poor local minima.
+
+    Parameters
+    ----------
+    x : array (n, d)
+    k : int
+        Number of centres.
+    restarts : int
+    rng : numpy.random.Generator
+        All draws come from it, so the same generator state gives the same seeds.
+
+    Returns
+    -------
+    array (restarts, k, d) of initial centres picked among the rows of ``x``.
+    """
+    x = np.ascontiguousarray(x, dtype=np.float64)
+    first = rng.integers(x.shape[0], size=restarts)
+    draws = rng.random((k - 1, restarts, 2 + int(np.log(k))))
+    chosen = np.empty((restarts, k), dtype=np.intp)
+    _seed_all(np.ascontiguousarray(x.T), first, draws, chosen)
+    return x[chosen]
+
+
+@numba.njit(nogil=True, cache=True)
+def _candidate_distances(rows, candidates, m, centres, gathered, d2):
     """``d2[j, q]`` = squared distance from centre j to point ``candidates[q]``, for q < m.
 
-    ``columns`` is the data transposed (d, n); the candidates' columns are
-    gathered into ``gathered`` (d, n) first, so the inner loop is contiguous.
+    The candidates' rows of the data (n, d) are gathered as the columns of
+    ``gathered`` (d, n) first, so that the inner loop runs contiguously over candidates.
     """
-    d, k = columns.shape[0], centres.shape[0]
-    for t in range(d):
-        for q in range(m):
-            gathered[t, q] = columns[t, candidates[q]]
+    d, k = rows.shape[1], centres.shape[0]
+    for q in range(m):
+        i = candidates[q]
+        for t in range(d):
+            gathered[t, q] = rows[i, t]
     for j in range(k):
         for q in range(m):
             d2[j, q] = 0.0
@@ -61,29 +146,28 @@ def _two_nearest(d2, m, index, best, second):
     for q in range(m):
         index[q], best[q], second[q] = 0, d2[0, q], np.inf
     for j in range(1, d2.shape[0]):
-        for q in range(m):
-            s = d2[j, q]
-            if s < best[q]:
-                second[q], best[q], index[q] = best[q], s, j
-            elif s < second[q]:
-                second[q] = s
+        for q in range(m):  # selects, not branches: they vectorise and never mispredict
+            s, b = d2[j, q], best[q]
+            index[q] = j if s < b else index[q]
+            second[q] = min(second[q], max(s, b))
+            best[q] = min(b, s)
 
 
 @numba.njit(nogil=True, cache=True)
-def _nearest_of_candidates(columns, centres, candidates, m, scratch):
+def _nearest_of_candidates(rows, centres, candidates, m, scratch):
     """Nearest centre and the two smallest squared distances of ``candidates[:m]``, into ``scratch``."""
     gathered, d2, index, best, second = scratch
-    _candidate_distances(columns, candidates, m, centres, gathered, d2)
+    _candidate_distances(rows, candidates, m, centres, gathered, d2)
     _two_nearest(d2, m, index, best, second)
 
 
 @numba.njit(nogil=True, cache=True)
-def _assign_all(x, columns, centres, labels, upper, lower, counts, sums, candidates, scratch):
+def _assign_all(x, centres, labels, upper, lower, counts, sums, candidates, scratch):
     """Every point to its nearest centre, both bounds exact, cluster counts and sums from scratch."""
     n = x.shape[0]
     for i in range(n):
         candidates[i] = i
-    _nearest_of_candidates(columns, centres, candidates, n, scratch)
+    _nearest_of_candidates(x, centres, candidates, n, scratch)
     index, best, second = scratch[2], scratch[3], scratch[4]
     counts[:] = 0.0
     sums[:] = 0.0
@@ -144,7 +228,7 @@ def _move_centres(centres, counts, sums, step, half):
 
 
 @numba.njit(nogil=True, cache=True)
-def _fit_one(x, columns, centres, labels, max_iterations):
+def _fit_one(x, centres, labels, max_iterations):
     """Lloyd iterations with Hamerly's bounds, in place on ``centres`` (k, d) and ``labels`` (n); returns the inertia."""
     n, d = x.shape
     k = centres.shape[0]
@@ -154,10 +238,10 @@ def _fit_one(x, columns, centres, labels, max_iterations):
     candidates = np.empty(n, dtype=np.intp)
     scratch = (np.empty((d, n)), np.empty((k, n)), np.empty(n, dtype=np.intp), np.empty(n), np.empty(n))
     index, best, second = scratch[2], scratch[3], scratch[4]
-    _assign_all(x, columns, centres, labels, upper, lower, counts, sums, candidates, scratch)
+    _assign_all(x, centres, labels, upper, lower, counts, sums, candidates, scratch)
     for _ in range(max_iterations):
         if _relocate_empty(x, centres, labels, counts):
-            _assign_all(x, columns, centres, labels, upper, lower, counts, sums, candidates, scratch)
+            _assign_all(x, centres, labels, upper, lower, counts, sums, candidates, scratch)
             continue
         _move_centres(centres, counts, sums, step, half)
         largest, runner_up, far = 0.0, 0.0, 0
@@ -172,10 +256,9 @@ def _fit_one(x, columns, centres, labels, max_iterations):
             a = labels[i]
             upper[i] += step[a]
             lower[i] -= runner_up if a == far else largest
-            if upper[i] > max(half[a], lower[i]):
-                candidates[m] = i
-                m += 1
-        _nearest_of_candidates(columns, centres, candidates, m, scratch)
+            candidates[m] = i  # kept only if the bounds fail: a compaction without branches
+            m += upper[i] > max(half[a], lower[i])
+        _nearest_of_candidates(x, centres, candidates, m, scratch)
         changed = 0
         for q in range(m):
             i = candidates[q]
@@ -200,9 +283,9 @@ def _fit_one(x, columns, centres, labels, max_iterations):
 
 
 @numba.njit(nogil=True, cache=True)
-def _fit_all(x, columns, centres, labels, inertia, max_iterations):
+def _fit_all(x, centres, labels, inertia, max_iterations):
     for r in range(centres.shape[0]):
-        inertia[r] = _fit_one(x, columns, centres[r], labels[r], max_iterations)
+        inertia[r] = _fit_one(x, centres[r], labels[r], max_iterations)
 
 
 def lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300):
@@ -222,7 +305,7 @@ def lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300):
     centres : array (r, k, d)
         Final centres: the means of their points when the restart converged.
     labels : array (r, n) of intp
-        Nearest final centre of each point (0..k-1; the first, on ties).
+        Nearest final centre of each point (0..k-1).
     inertia : array (r,)
         Within-cluster sum of squared distances of each restart.
 
@@ -233,5 +316,5 @@ def lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300):
     centres = np.array(centres, dtype=np.float64, order="C")
     labels = np.empty((centres.shape[0], x.shape[0]), dtype=np.intp)
     inertia = np.empty(centres.shape[0])
-    _fit_all(x, np.ascontiguousarray(x.T), centres, labels, inertia, int(max_iterations))
+    _fit_all(x, centres, labels, inertia, int(max_iterations))
     return centres, labels, inertia

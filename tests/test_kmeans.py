@@ -1,4 +1,4 @@
-"""Tests of the compiled k-means (regimes/lloyd.py) and of the k-means regimes built on it (regimes/cluster.py)."""
+"""Tests of the compiled k-means (regimes/kmeans.py) and of the k-means regimes built on it (regimes/cluster.py)."""
 
 from __future__ import annotations
 
@@ -11,8 +11,8 @@ from sklearn.cluster import KMeans
 from sklearn.datasets import make_blobs
 from sklearn.metrics import adjusted_rand_score
 
-from regimes.cluster import KMeansRegimes, kmeans_plus_plus
-from regimes.lloyd import lloyd
+from regimes.cluster import KMeansRegimes
+from regimes.kmeans import kmeans_plus_plus, lloyd
 
 
 def textbook_lloyd(x, centres, max_iterations=300):
