@@ -8,8 +8,9 @@ clustering:
 
 ours
     :func:`regimes.scan.surrogate_classifiability` / :func:`regimes.scan.restart_fits`:
-    all R k-means++ restarts at once (regimes.cluster), surrogates over a
-    thread pool;
+    the R restarts of a k seeded and iterated in compiled code
+    (regimes.kmeans: greedy k-means++, Lloyd with Hamerly's bounds, run to
+    convergence), surrogates over a thread pool;
 sklearn
     ``sklearn.cluster.KMeans(n_clusters=k, n_init=1, random_state=...)`` in a
     Python loop over the R restarts, surrogates one after the other (its own
