@@ -99,8 +99,7 @@ def _compare(args) -> None:
     result.attrs.update(output.provenance(" ".join(["regimes", *sys.argv[1:]]), None, a.inputs + b.inputs))
     result.attrs["title"] = "regimes: comparison of two regime sets"
     picture = compare.figure(result)
-    output.write(output.coordinate_attrs(result), folder / "comparison.nc")
-    output.write_bytes(picture, folder / "comparison.png")
+    output.write_all({"comparison.nc": output.coordinate_attrs(result), "comparison.png": picture}, folder, overwrite=False)
     print(compare.table(result))
     print(f"wrote {folder / 'comparison.nc'} and {folder / 'comparison.png'}")
 

@@ -36,9 +36,6 @@ from .model import RegimeModel
 
 log = logging.getLogger("regimes")
 
-FILES = ("comparison.nc", "comparison.png")
-
-
 @dataclass
 class RegimeSet:
     """One side of a comparison."""

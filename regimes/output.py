@@ -196,8 +196,10 @@ RESULT_FILES = frozenset({*RUN_FILES, "scan.nc"})
 the new one does not write are removed, and no other file."""
 
 
-def write_all(files: dict[str, xr.Dataset], folder: Path, overwrite: bool) -> list[Path]:
+def write_all(files: dict[str, xr.Dataset | bytes], folder: Path, overwrite: bool) -> list[Path]:
     """Write several result files into ``folder``: all under temporary names, then all renamed.
+
+    A dataset is written as NetCDF; bytes (a figure) are written as they are.
 
     If anything fails or the run is interrupted before the renaming, the
     temporary files are removed, and so is ``folder`` when this call created
@@ -212,7 +214,10 @@ def write_all(files: dict[str, xr.Dataset], folder: Path, overwrite: bool) -> li
             written = {}
             for name, ds in files.items():
                 written[name] = temporaries.enter_context(_temporary(folder / name))
-                _to_netcdf(ds, written[name])
+                if isinstance(ds, bytes):
+                    written[name].write_bytes(ds)
+                else:
+                    _to_netcdf(ds, written[name])
             with _stop_signals_deferred():
                 for name, tmp in written.items():
                     os.replace(tmp, folder / name)

@@ -75,6 +75,22 @@ def test_a_run_compared_with_itself(halves, tmp_path, capsys):
         assert picture.format == "PNG" and picture.size[0] > 500
 
 
+def test_a_failed_figure_write_leaves_no_table_either(halves, tmp_path, capsys, monkeypatch):
+    # the table and the figure are renamed together: when writing one fails, neither is left
+    _, (first, second) = halves
+    real = type(tmp_path).write_bytes
+
+    def full_disk(path, data):
+        if path.name.startswith(".comparison.png"):
+            raise OSError(28, "No space left on device")
+        return real(path, data)
+
+    monkeypatch.setattr(type(tmp_path), "write_bytes", full_disk)
+    with pytest.raises(OSError):
+        compare_cli(first, second, tmp_path / "out", capsys)
+    assert not (tmp_path / "out").exists()
+
+
 def test_fits_on_the_two_halves_match_every_planted_regime(halves, tmp_path, capsys):
     truth, (first, second) = halves
     status, _, err = compare_cli(first, second, tmp_path / "halves", capsys)
