@@ -340,6 +340,8 @@ def durations(run: Finished, style) -> Figure:
     fig = _figure(rows * 2.2 + 0.6)
     axes = fig.subplots(rows, cols, sharex=True, sharey=True, squeeze=False).ravel()
     d = st["duration"].values
+    unit = st["duration"].attrs.get("units", "days")
+    short = {"days": "d", "months": "mo"}.get(unit, unit)
     for ax, r, colour in zip(axes, regimes, colours):
         _panel(ax)
         counts = hist.sel(regime=r).values.astype(float)
@@ -347,20 +349,20 @@ def durations(run: Finished, style) -> Figure:
         share = counts / total if total > 0 else counts
         episodes = int(st["episode_count"].sel(regime=r))
         median, longest = float(st["median_duration"].sel(regime=r)), int(st["max_duration"].sel(regime=r))
-        ax.bar(d, 100 * share, width=0.9, color=colour, label=f"{episodes} episodes, median {median:.0f} d, longest {longest} d")
+        ax.bar(d, 100 * share, width=0.9, color=colour, label=f"{episodes} episodes, median {median:.0f} {short}, longest {longest} {short}")
         p = float(st["transition_probability"].sel(regime_from=r, regime_to=r))
         law = np.where(d >= shortest, (1 - p) * p ** (d - shortest), 0.0)
         ax.plot(d, 100 * law, color="#222222", linewidth=1.0, label=f"geometric law, p = {p:.2f}")
         mean = float(st["mean_duration"].sel(regime=r))
         if np.isfinite(mean):  # no mean when min_duration_days leaves out every episode of the regime
-            ax.axvline(mean, color="#222222", linewidth=0.8, linestyle=":", label=f"mean {mean:.1f} d")
+            ax.axvline(mean, color="#222222", linewidth=0.8, linestyle=":", label=f"mean {mean:.1f} {short}")
         ax.set_title(regime_label(run, r))
         ax.yaxis.set_major_formatter(PercentFormatter(decimals=0))
         ax.legend(loc="upper right")
     for ax in axes[regimes.size:]:
         ax.set_visible(False)
     for ax in axes[(rows - 1) * cols:]:
-        ax.set_xlabel("episode duration (days)")
+        ax.set_xlabel(f"episode duration ({unit})")
     fig.suptitle("Episode durations: share of episodes, and the geometric law of a first-order Markov chain", x=0.01, ha="left")
     return fig
 

@@ -16,7 +16,7 @@ from types import SimpleNamespace
 import numpy as np
 import xarray as xr
 
-from . import stats
+from . import data, stats
 from .cluster import UNASSIGNED
 from .model import RegimeModel
 from .output import RUN_FILES, coordinate_attrs, flag_meanings
@@ -62,6 +62,11 @@ def _state_coords(cfg) -> dict:
 
 def _label_attrs(cfg, long_name: str) -> dict:
     return {"long_name": long_name, "flag_values": label_states(cfg).astype(np.int8), "flag_meanings": flag_meanings(_state_names(cfg))}
+
+
+def _duration_unit(prep) -> str:
+    """Unit of episode durations: one time step of the data, 'days' for daily data and 'months' for monthly data."""
+    return "months" if data.time_step_kind(prep.template["time"]) == "monthly" else "days"
 
 
 def labels_file(cfg, prep, found) -> xr.Dataset:
@@ -152,7 +157,7 @@ def statistics_file(cfg, prep, found) -> xr.Dataset:
     ds["month"].attrs = {"long_name": "calendar month", "units": "1"}
     ds["season_year"].attrs = {"long_name": "year in which the season starts", "units": "1"}
     d = s["durations"]
-    unit = "days"
+    unit = _duration_unit(prep)
     ds["episode_count"] = d["episode_count"].assign_attrs(long_name="number of episodes counted", units="1", min_duration_days=cfg.regimes.min_duration_days)
     for key, text in (("mean_duration", "mean"), ("median_duration", "median"), ("max_duration", "longest")):
         ds[key] = d[key].astype(np.float64).assign_attrs(long_name=f"{text} episode duration", units=unit)
@@ -212,7 +217,7 @@ def model_dataset(cfg, prep, found) -> xr.Dataset:
     regimes = np.arange(1, cfg.regimes.k + 1)
     ds["frequency"] = ("regime", found["stats"]["frequency"].sel(regime=regimes).values, {"long_name": "fraction of the fitted time steps in each regime", "units": "1"})
     ds["mean_duration"] = ("regime", found["stats"]["durations"]["mean_duration"].sel(regime=regimes).values, {
-        "long_name": "mean episode duration in the fitted data", "units": "days",
+        "long_name": "mean episode duration in the fitted data", "units": _duration_unit(prep),
     })
     if clusterer.method == "gaussian-mixture":
         ds["covariance"] = clusterer.covariances_.assign_attrs(long_name="regime covariance in PC space")

@@ -262,3 +262,33 @@ dir = "out"
         days = labels["time"].where(labels["label"] == r, drop=True)
         expected = reference.sel(time=days).mean("time")
         np.testing.assert_allclose(comp["anomaly_composite"].sel(regime=r).values, expected.values, atol=0.05)
+
+
+def test_monthly_data_give_durations_in_months(tmp_path):
+    # durations count time steps, so monthly data give them in months, in the files and on the figure
+    from regimes import figures, finished
+
+    data, _ = synthetic.planted_regimes(years=20, lat=LAT[::2], lon=LON[::2], k=3, seed=5)
+    monthly = data.resample(time="MS").mean()
+    monthly.attrs = data.attrs
+    synthetic.write_netcdf(monthly, tmp_path / "monthly.nc")
+    cfg, text = write_config(tmp_path, """
+[data]
+paths = ["monthly.nc"]
+variable = "psl"
+[eof]
+modes = 3
+[regimes]
+k = 2
+restarts = 5
+[figures]
+draw = false
+[output]
+dir = "out"
+""")
+    out = pipeline.run(cfg, text)
+    with xr.open_dataset(out / "statistics.nc") as st, xr.open_dataset(out / "model.nc") as model:
+        assert st["mean_duration"].attrs["units"] == "months" and st["duration"].attrs["units"] == "months"
+        assert model["mean_duration"].attrs["units"] == "months"
+    fig = figures.durations(finished.open_folder(out), cfg.figures)
+    assert {ax.get_xlabel() for ax in fig.axes if ax.get_visible() and ax.get_xlabel()} == {"episode duration (months)"}
