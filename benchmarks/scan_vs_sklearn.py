@@ -1,4 +1,4 @@
-"""Wall time and peak memory of the classifiability + red-noise scan: batched k-means against scikit-learn.
+"""Wall time and peak memory of the classifiability + red-noise scan: our compiled k-means against scikit-learn.
 
 Both sides compute, for k = 2..8, the classifiability index over R restarts
 (Michelangeli, Vautard & Legras 1995) of the observed PCs and of S red-noise

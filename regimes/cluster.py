@@ -24,9 +24,14 @@ def _as_matrix(pcs: xr.DataArray) -> np.ndarray:
     return np.asarray(pcs.transpose("sample", "mode").values, dtype=np.float64)
 
 
-def _check_enough(n: int, k: int) -> None:
+def _check_enough(x: np.ndarray, k: int) -> None:
+    """Refuse a k above the number of selected days, or of distinct days (PC vectors)."""
+    n = x.shape[0]
     if n < k:
         raise UserError(f"regimes.k = {k} is larger than the number of selected days ({n}); lower k or select more days")
+    distinct = np.unique(x, axis=0).shape[0]
+    if distinct < k:
+        raise UserError(f"regimes.k = {k} is larger than the number of distinct days ({distinct} of {n} differ in their PCs); lower k")
 
 
 def _frequency_order(labels: np.ndarray, centres: np.ndarray) -> np.ndarray:
@@ -38,19 +43,8 @@ def _frequency_order(labels: np.ndarray, centres: np.ndarray) -> np.ndarray:
 
 
 def squared_distances(x: np.ndarray, centres: np.ndarray) -> np.ndarray:
-    """Squared Euclidean distances, batched over restarts.
-
-    Parameters
-    ----------
-    x : array (n, d)
-    centres : array (r, k, d)
-
-    Returns
-    -------
-    array (r, n, k), float64, clipped at 0.
-    """
-    cross = np.einsum("nd,rkd->rnk", x, centres, optimize=True)
-    d2 = (x**2).sum(1)[None, :, None] - 2 * cross + (centres**2).sum(2)[:, None, :]
+    """Squared Euclidean distances (n, k) from the rows of ``x`` (n, d) to ``centres`` (k, d), clipped at 0."""
+    d2 = (x**2).sum(1)[:, None] - 2 * x @ centres.T + (centres**2).sum(1)[None, :]
     return np.maximum(d2, 0.0)
 
 
@@ -95,7 +89,7 @@ class KMeansRegimes:
     def fit(self, pcs: xr.DataArray) -> "KMeansRegimes":
         """Fit on PCs with dims ``(sample, mode)``."""
         x = _as_matrix(pcs)
-        _check_enough(x.shape[0], self.k)
+        _check_enough(x, self.k)
         start = kmeans_plus_plus(x, self.k, self.restarts, self.rng)
         centres, labels, inertia = lloyd(x, start, self.max_iterations)
         best = int(np.argmin(inertia))
@@ -109,7 +103,7 @@ class KMeansRegimes:
 
     def distances(self, pcs: xr.DataArray) -> xr.DataArray:
         """Euclidean distance of each sample to each centroid, dims ``(sample, regime)``."""
-        d2 = squared_distances(_as_matrix(pcs), self.centroids_.values[None])[0]
+        d2 = squared_distances(_as_matrix(pcs), self.centroids_.values)
         return xr.DataArray(np.sqrt(d2), dims=("sample", "regime"), coords={"sample": pcs["sample"], "regime": self.centroids_["regime"]})
 
     def predict(self, pcs: xr.DataArray) -> xr.DataArray:
@@ -151,7 +145,7 @@ class GaussianMixtureRegimes:
         from sklearn.mixture import GaussianMixture  # imported here: it costs every k-means job ~0.5 s of start-up
 
         x = _as_matrix(pcs)
-        _check_enough(x.shape[0], self.k)
+        _check_enough(x, self.k)
         gm = GaussianMixture(
             n_components=self.k,
             covariance_type="full",

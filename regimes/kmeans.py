@@ -12,16 +12,18 @@ every centre to the mean of its points, until no assignment changes. Hamerly
 130-140) gives the same iterates while skipping most distance computations:
 each point keeps an upper bound on the distance to its own centre and a lower
 bound on the distance to every other centre; a point whose upper bound is
-below both its lower bound and half the distance from its centre to the
-nearest other centre cannot change cluster.
+strictly below both its lower bound and half the distance from its centre to
+the nearest other centre cannot change cluster (a point on a tie is always
+re-examined, so ties go to the first centre, as in the plain algorithm).
 
 Each iteration first sorts out, point by point, which points the bounds
 cannot settle (the candidates); their distances to every centre are then
 computed in one pass vectorised over candidates. The kernels are compiled by
 numba and release the GIL, so fits run in parallel on threads. Distances are
-float64 (in compiled loops float32 is not faster here) and no fast-math
-reordering is used, so the iterates are the exact Lloyd iterates and the same
-input always gives the same result.
+float64 (float32 would save about a tenth of the time, and the bounds would
+have to be widened for its rounding) and no fast-math reordering is used, so
+the iterates are Lloyd's (up to rounding, on ties closer than the last bits
+of a distance) and the same input always gives the same result.
 """
 
 from __future__ import annotations
@@ -66,7 +68,7 @@ def _seed_one(columns, first, draws, chosen, closest, cumulative, trial):
         for i in range(n):
             total += closest[i]
             cumulative[i] = total
-        best_sum, best = np.inf, 0
+        best_sum, best = np.inf, -1
         for s in range(draws.shape[1]):
             candidate = min(np.searchsorted(cumulative, draws[j - 1, s] * total), n - 1)
             _to_point(columns, candidate, trial[s])
@@ -74,7 +76,7 @@ def _seed_one(columns, first, draws, chosen, closest, cumulative, trial):
             for i in range(n):
                 trial[s, i] = min(trial[s, i], closest[i])
                 reduced += trial[s, i]
-            if reduced < best_sum:
+            if best < 0 or reduced < best_sum:
                 best_sum, best, chosen[j] = reduced, s, candidate
         closest[:] = trial[best]
 
@@ -86,6 +88,14 @@ def _seed_all(columns, first, draws, chosen):
     trial = np.empty((draws.shape[2], n))
     for r in range(first.size):
         _seed_one(columns, first[r], draws[:, r], chosen[r], closest, cumulative, trial)
+
+
+def _finite(x: np.ndarray) -> np.ndarray:
+    """``x`` as a C-ordered float64 array; a ValueError if it holds NaN or infinite values (PCs never do)."""
+    x = np.ascontiguousarray(x, dtype=np.float64)
+    if not np.isfinite(x).all():
+        raise ValueError("k-means input holds NaN or infinite values")
+    return x
 
 
 def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Generator) -> np.ndarray:
@@ -100,17 +110,27 @@ def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Genera
     Parameters
     ----------
     x : array (n, d)
+        The points (PCs: samples by modes), finite.
     k : int
-        Number of centres.
+        Number of centres (>= 1).
     restarts : int
+        Number of independent seedings.
     rng : numpy.random.Generator
-        All draws come from it, so the same generator state gives the same seeds.
+        All draws come from it, so the same generator state gives the same
+        seeds. The draws of all restarts are taken at once, so the seeds of
+        one restart depend on how many restarts there are.
 
     Returns
     -------
-    array (restarts, k, d) of initial centres picked among the rows of ``x``.
+    centres : array (restarts, k, d)
+        Initial centres, picked among the rows of ``x``.
+
+    Raises
+    ------
+    ValueError
+        If ``x`` holds NaN or infinite values.
     """
-    x = np.ascontiguousarray(x, dtype=np.float64)
+    x = _finite(x)
     first = rng.integers(x.shape[0], size=restarts)
     draws = rng.random((k - 1, restarts, 2 + int(np.log(k))))
     chosen = np.empty((restarts, k), dtype=np.intp)
@@ -183,24 +203,46 @@ def _assign_all(x, centres, labels, upper, lower, counts, sums, candidates, scra
 
 @numba.njit(nogil=True, cache=True)
 def _relocate_empty(x, centres, labels, counts):
-    """Move each empty cluster's centre onto the point farthest from its own centre; True if any was empty."""
-    moved = False
+    """Move each empty cluster's centre onto the point farthest from its own centre.
+
+    Returns 1 if a cluster was refilled, 0 if none was empty, and -1 if one is
+    empty and cannot be refilled: every point lies on its centre, or is the
+    only point of its cluster (fewer distinct points than clusters).
+    """
+    moved = 0
     for j in range(centres.shape[0]):
         if counts[j] > 0:
             continue
-        far, distance = 0, -1.0
+        far, distance = 0, 0.0
         for i in range(x.shape[0]):
             if counts[labels[i]] <= 1.0:  # keep every other cluster non-empty
                 continue
             s = _distance(x, i, centres, labels[i])
             if s > distance:
                 far, distance = i, s
+        if distance == 0.0:
+            return -1
         counts[labels[far]] -= 1.0
         labels[far] = j
         counts[j] = 1.0
         centres[j] = x[far]
-        moved = True
+        moved = 1
     return moved
+
+
+@numba.njit(nogil=True, cache=True)
+def _exact_means(x, labels, centres, counts, sums):
+    """Centres to the means of their points, summed afresh (the running sums gather rounding over the iterations)."""
+    counts[:] = 0.0
+    sums[:] = 0.0
+    for i in range(x.shape[0]):
+        counts[labels[i]] += 1.0
+        for t in range(x.shape[1]):
+            sums[labels[i], t] += x[i, t]
+    for j in range(centres.shape[0]):
+        if counts[j] > 0:
+            for t in range(x.shape[1]):
+                centres[j, t] = sums[j, t] / counts[j]
 
 
 @numba.njit(nogil=True, cache=True)
@@ -240,7 +282,10 @@ def _fit_one(x, centres, labels, max_iterations):
     index, best, second = scratch[2], scratch[3], scratch[4]
     _assign_all(x, centres, labels, upper, lower, counts, sums, candidates, scratch)
     for _ in range(max_iterations):
-        if _relocate_empty(x, centres, labels, counts):
+        refilled = _relocate_empty(x, centres, labels, counts)
+        if refilled < 0:
+            break
+        if refilled:
             _assign_all(x, centres, labels, upper, lower, counts, sums, candidates, scratch)
             continue
         _move_centres(centres, counts, sums, step, half)
@@ -257,7 +302,7 @@ def _fit_one(x, centres, labels, max_iterations):
             upper[i] += step[a]
             lower[i] -= runner_up if a == far else largest
             candidates[m] = i  # kept only if the bounds fail: a compaction without branches
-            m += upper[i] > max(half[a], lower[i])
+            m += upper[i] >= max(half[a], lower[i])
         _nearest_of_candidates(x, centres, candidates, m, scratch)
         changed = 0
         for q in range(m):
@@ -274,6 +319,7 @@ def _fit_one(x, centres, labels, max_iterations):
                     sums[j, t] += x[i, t]
                 changed += 1
         if changed == 0:
+            _exact_means(x, labels, centres, counts, sums)
             break
     inertia = 0.0
     for i in range(n):
@@ -294,11 +340,12 @@ def lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300):
     Parameters
     ----------
     x : array (n, d)
-        The points (PCs: samples by modes).
+        The points (PCs: samples by modes), finite.
     centres : array (r, k, d)
         Initial centres of each of r restarts.
     max_iterations : int
-        Assignment steps per restart at most, after the first.
+        Iterations per restart at most, after the first assignment; refilling
+        an empty cluster counts as one.
 
     Returns
     -------
@@ -309,10 +356,19 @@ def lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300):
     inertia : array (r,)
         Within-cluster sum of squared distances of each restart.
 
+    Raises
+    ------
+    ValueError
+        If ``x`` holds NaN or infinite values.
+
+    Notes
+    -----
     An empty cluster's centre is moved onto the point farthest from its own
-    centre (common practice; scikit-learn does the same).
+    centre (common practice; scikit-learn does the same). With fewer distinct
+    points than clusters a cluster stays empty and the restart stops there;
+    :class:`regimes.cluster.KMeansRegimes` refuses such data beforehand.
     """
-    x = np.ascontiguousarray(x, dtype=np.float64)
+    x = _finite(x)
     centres = np.array(centres, dtype=np.float64, order="C")
     labels = np.empty((centres.shape[0], x.shape[0]), dtype=np.intp)
     inertia = np.empty(centres.shape[0])

@@ -1,7 +1,7 @@
 """Choosing the number of regimes: classifiability, red-noise significance, stability.
 
 For each k of a range, :func:`scan` clusters the PCs with many k-means++
-restarts (the batched k-means of :mod:`regimes.cluster`) and reports
+restarts (the compiled k-means of :mod:`regimes.kmeans`) and reports
 
 * the classifiability index of Michelangeli, Vautard & Legras (1995,
   J. Atmos. Sci. 52, 1237-1256) over pairs of restarts (:func:`classifiability`);

@@ -12,15 +12,19 @@ from sklearn.datasets import make_blobs
 from sklearn.metrics import adjusted_rand_score
 
 from regimes.cluster import KMeansRegimes
+from regimes.errors import UserError
 from regimes.kmeans import kmeans_plus_plus, lloyd
 
 
 def textbook_lloyd(x, centres, max_iterations=300):
     """Lloyd's algorithm as defined (Lloyd 1982, IEEE Trans. Inf. Theory 28, 129-137), without any bounds:
-    every point to its nearest centre, every centre to the mean of its points, until no point changes centre."""
+    every point to its nearest centre (the first, on ties), every centre to the mean of its points, until no
+    point changes centre. Returns None if a cluster empties (the definition says nothing about that case)."""
     centres = centres.copy()
     labels = ((x[:, None, :] - centres[None]) ** 2).sum(2).argmin(1)
     for _ in range(max_iterations):
+        if np.bincount(labels, minlength=centres.shape[0]).min() == 0:
+            return None
         centres = np.stack([x[labels == j].mean(0) for j in range(centres.shape[0])])
         new = ((x[:, None, :] - centres[None]) ** 2).sum(2).argmin(1)
         if (new == labels).all():
@@ -53,6 +57,79 @@ def test_same_iterates_as_the_textbook_algorithm_on_red_noise(k):
         np.testing.assert_array_equal(labels[r], want_labels)
         np.testing.assert_allclose(centres[r], want_centres, rtol=0, atol=1e-10)
         assert inertia[r] == pytest.approx(((x - want_centres[want_labels]) ** 2).sum(), rel=1e-12)
+
+
+def test_ties_go_to_the_first_centre_as_in_the_textbook_algorithm():
+    # a point exactly as far from two centres is re-examined and goes to the first, as argmin does
+    x = np.array([[-5.0], [-3.0], [-2.0], [2.0], [0.0], [4.0], [-1.0], [5.0], [-6.0]])
+    start = np.array([[[-3.0], [-2.0]]])
+    centres, labels, inertia = lloyd(x, start)
+    want_centres, want_labels = textbook_lloyd(x, start[0])
+    np.testing.assert_array_equal(labels[0], want_labels)
+    assert inertia[0] == pytest.approx(((x - want_centres[want_labels]) ** 2).sum(), rel=1e-12)
+
+
+def test_same_iterates_as_the_textbook_algorithm_on_small_integer_data():
+    # small integer data are full of exact ties between distances
+    rng = np.random.default_rng(2026)
+    compared = 0
+    for _ in range(400):
+        n, d, k = int(rng.integers(6, 30)), int(rng.integers(1, 3)), int(rng.integers(2, 4))
+        x = rng.integers(-6, 7, size=(n, d)).astype(float)
+        if np.unique(x, axis=0).shape[0] < k:
+            continue
+        start = kmeans_plus_plus(x, k, 1, rng)
+        want = textbook_lloyd(x, start[0])
+        if want is None:
+            continue
+        centres, labels, _ = lloyd(x, start)
+        np.testing.assert_array_equal(labels[0], want[1])
+        np.testing.assert_allclose(centres[0], want[0], rtol=0, atol=1e-12)
+        compared += 1
+    assert compared >= 300
+
+
+def slow_greedy_seeding(x, k, restarts, rng):
+    """Greedy k-means++ (Arthur & Vassilvitskii 2007; the greedy variant with 2 + floor(ln k) candidates, as
+    scikit-learn documents it), written plainly with the same draws: the first centre uniform, each next one the
+    candidate, drawn by squared distance to the nearest chosen centre, that leaves the smallest sum of those distances."""
+    n = x.shape[0]
+    first = rng.integers(n, size=restarts)
+    draws = rng.random((k - 1, restarts, 2 + int(np.log(k))))
+    picked = []
+    for r in range(restarts):
+        chosen = [int(first[r])]
+        closest = ((x - x[chosen[0]]) ** 2).sum(1)
+        for j in range(1, k):
+            cumulative = np.cumsum(closest)
+            best = None
+            for u in draws[j - 1, r]:
+                c = min(int(np.searchsorted(cumulative, u * cumulative[-1])), n - 1)
+                reduced = np.minimum(closest, ((x - x[c]) ** 2).sum(1))
+                if best is None or reduced.sum() < best[0]:
+                    best = (reduced.sum(), c, reduced)
+            chosen.append(best[1])
+            closest = best[2]
+        picked.append(chosen)
+    return x[np.array(picked)]
+
+
+@pytest.mark.parametrize("k", [2, 5, 9])
+def test_seeding_equals_the_plain_greedy_kmeans_plus_plus(k):
+    x = red_noise(700, 4, 0.5, seed=k)
+    np.testing.assert_array_equal(
+        kmeans_plus_plus(x, k, 6, np.random.default_rng(k)), slow_greedy_seeding(x, k, 6, np.random.default_rng(k))
+    )
+
+
+def test_seeding_puts_one_centre_in_each_of_far_apart_clusters():
+    # k-means++ draws by squared distance, so with five tight, far-apart clusters every restart starts with one
+    # centre in each (uniform seeding would manage that in only 5!/5^5, about 4 %, of the restarts)
+    x, truth = make_blobs(n_samples=1000, centers=5 * np.eye(5) * 100, cluster_std=1.0, random_state=1)
+    starts = kmeans_plus_plus(x, 5, 50, np.random.default_rng(1))
+    for start in starts:
+        hit = truth[((x[:, None, :] - start[None]) ** 2).sum(2).argmin(0)]
+        assert sorted(hit) == [0, 1, 2, 3, 4]
 
 
 def test_same_result_as_scikit_learn_from_the_same_start():
@@ -92,12 +169,32 @@ def test_same_seed_same_result_other_seed_other_starts():
 def test_an_empty_cluster_is_moved_onto_the_farthest_point():
     x = np.concatenate([np.random.default_rng(0).normal(size=(200, 2)), [[8.0, 8.0]]])
     start = np.array([[[0.0, 0.0], [0.5, 0.0], [100.0, 100.0]]])  # the third centre is nearest to no point
+    moved, _, _ = lloyd(x, start, max_iterations=1)  # the one iteration refills the empty cluster
+    np.testing.assert_array_equal(moved[0][2], [8.0, 8.0])  # (8, 8) is the point farthest from its centre
     centres, labels, inertia = lloyd(x, start)
     assert np.bincount(labels[0], minlength=3).min() >= 1
     np.testing.assert_array_equal(labels[0], textbook_lloyd(x, centres[0])[1])  # a fixed point of Lloyd's iteration
 
 
-@settings(max_examples=60, deadline=None)
+def test_fewer_distinct_points_than_clusters_stop_at_once_and_are_refused_as_regimes():
+    x = np.repeat([[0.0, 0.0], [1.0, 1.0]], 50, axis=0)
+    start = np.array([[[0.0, 0.0], [1.0, 1.0], [0.0, 0.0], [1.0, 1.0]]])
+    centres, labels, _ = lloyd(x, start, max_iterations=10**7)  # returns at once instead of relocating for ever
+    np.testing.assert_array_equal(np.unique(labels[0]), [0, 1])
+    with pytest.raises(UserError, match=r"regimes\.k = 4 is larger than the number of distinct days \(2 of 100"):
+        KMeansRegimes(k=4, restarts=3).fit(as_pcs(x))
+
+
+def test_non_finite_input_is_a_programming_error():
+    x = red_noise(50, 2, 0.5, seed=0)
+    x[3, 1] = np.nan
+    with pytest.raises(ValueError, match="NaN or infinite"):
+        kmeans_plus_plus(x, 3, 2, np.random.default_rng(0))
+    with pytest.raises(ValueError, match="NaN or infinite"):
+        lloyd(x, x[None, :3])
+
+
+@settings(max_examples=60, deadline=None, derandomize=True)
 @given(
     n=st.integers(10, 120),
     d=st.integers(1, 6),
