@@ -11,7 +11,9 @@ from __future__ import annotations
 
 import contextlib
 import datetime as _dt
+import errno
 import os
+import shutil
 import signal
 import sys
 import threading
@@ -196,28 +198,60 @@ RESULT_FILES = frozenset({*RUN_FILES, "scan.nc"})
 the new one does not write are removed, and no other file."""
 
 
+FULL_BELOW_BYTES = 1 << 20
+"""A failed write into a folder with less free space than this is taken for a full disk."""
+
+
+def _unwritable(path: Path, error: Exception) -> UserError | None:
+    """The user's error behind a failed write of ``path`` (a full disk, no permission), or None for anything else.
+
+    The netCDF library reports a full disk only as 'NetCDF: HDF error', so the
+    free space left in the folder is what tells.
+    """
+    code = getattr(error, "errno", None)
+    if code in (errno.EACCES, errno.EPERM, errno.EROFS):
+        return UserError(f"cannot write '{path}': {os.strerror(code).lower()}; choose an output folder you can write to")
+    free = shutil.disk_usage(next(p for p in path.parents if p.exists())).free
+    if code in (errno.ENOSPC, errno.EDQUOT) or free < FULL_BELOW_BYTES:
+        return UserError(f"cannot write '{path}': the disk is full ({free // 1024} KiB free); free some space or choose another output folder")
+    return None
+
+
 def write_all(files: dict[str, xr.Dataset | bytes], folder: Path, overwrite: bool) -> list[Path]:
     """Write several result files into ``folder``: all under temporary names, then all renamed.
 
     A dataset is written as NetCDF; bytes (a figure) are written as they are.
 
     If anything fails or the run is interrupted before the renaming, the
-    temporary files are removed, and so is ``folder`` when this call created
+    temporary files are removed (a full disk or a folder without write
+    permission is a :class:`UserError`), and so is ``folder`` when this call created
     it. With ``overwrite``, result files (:data:`RESULT_FILES`) of an earlier
     run that this run does not produce are removed, so the folder holds one run only.
     """
     folder = Path(folder)
     created = not folder.exists()
-    folder.mkdir(parents=True, exist_ok=True)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as error:
+        user_error = _unwritable(folder, error)
+        if user_error is None:
+            raise
+        raise user_error from None
     try:
         with contextlib.ExitStack() as temporaries:
             written = {}
             for name, ds in files.items():
                 written[name] = temporaries.enter_context(_temporary(folder / name))
-                if isinstance(ds, bytes):
-                    written[name].write_bytes(ds)
-                else:
-                    _to_netcdf(ds, written[name])
+                try:
+                    if isinstance(ds, bytes):
+                        written[name].write_bytes(ds)
+                    else:
+                        _to_netcdf(ds, written[name])
+                except (OSError, RuntimeError) as error:
+                    user_error = _unwritable(folder / name, error)
+                    if user_error is None:
+                        raise
+                    raise user_error from None
             with _stop_signals_deferred():
                 for name, tmp in written.items():
                     os.replace(tmp, folder / name)

@@ -86,8 +86,8 @@ def test_a_failed_figure_write_leaves_no_table_either(halves, tmp_path, capsys, 
         return real(path, data)
 
     monkeypatch.setattr(type(tmp_path), "write_bytes", full_disk)
-    with pytest.raises(OSError):
-        compare_cli(first, second, tmp_path / "out", capsys)
+    status, _, err = compare_cli(first, second, tmp_path / "out", capsys)
+    assert status == 2 and err[-1].startswith("regimes: error: cannot write ") and "comparison.png': the disk is full" in err[-1]
     assert not (tmp_path / "out").exists()
 
 

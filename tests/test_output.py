@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import errno
+import shutil
 import signal
 import subprocess
 import sys
@@ -11,7 +13,8 @@ import pytest
 import xarray as xr
 from test_cli import checkout_env
 
-from regimes import output, synthetic
+from regimes import cli, output, synthetic
+from regimes.errors import UserError
 
 
 def small_dataset(value: float = 1.0) -> xr.Dataset:
@@ -35,6 +38,34 @@ def test_failure_while_writing_leaves_nothing(tmp_path, monkeypatch):
         output.write_all({"a.nc": small_dataset(), "b.nc": small_dataset()}, folder, overwrite=False)
     assert calls[0].parent == folder and calls[0].name != "a.nc"  # written under a temporary name
     assert not folder.exists()
+
+
+@pytest.mark.parametrize("failure, free, message", [
+    # the netCDF library reports a full disk only as an HDF error; the free space left tells
+    (RuntimeError("NetCDF: HDF error"), 4096, r"cannot write '.*a\.nc': the disk is full \(4 KiB free\); free some space or choose another output folder"),
+    (OSError(errno.ENOSPC, "No space left on device"), 10**9, r"the disk is full"),
+    (PermissionError(errno.EACCES, "Permission denied"), 10**9, r"cannot write '.*a\.nc': permission denied; choose an output folder you can write to"),
+    (OSError(errno.EROFS, "Read-only file system"), 10**9, r"read-only file system; choose an output folder you can write to"),
+], ids=["full disk, HDF error", "full disk, ENOSPC", "no permission", "read-only"])
+def test_a_full_disk_or_a_locked_folder_is_a_user_error(tmp_path, monkeypatch, capsys, failure, free, message):
+    def failing(ds, path):
+        raise failure
+
+    monkeypatch.setattr(output, "_to_netcdf", failing)
+    monkeypatch.setattr(output.shutil, "disk_usage", lambda path: shutil._ntuple_diskusage(10**10, 10**10 - free, free))
+    with pytest.raises(UserError, match=message):
+        output.write_all({"a.nc": small_dataset()}, tmp_path / "results", overwrite=False)
+    assert not (tmp_path / "results").exists()
+    # from the command line: one line, exit status 2, nothing written
+    job = tmp_path / "job.toml"
+    job.write_text('[data]\nvariable = "psl"\npaths = "small.nc"\n[eof]\nmodes = 3\n[regimes]\nk = 2\nrestarts = 2\n[output]\ndir = "out"\n')
+    synthetic.write_netcdf(synthetic.planted_regimes(years=1, lat=np.arange(30.0, 71.0, 20.0), lon=np.arange(-40.0, 21.0, 20.0), k=2, seed=1)[0],
+                           tmp_path / "small.nc")
+    monkeypatch.chdir(tmp_path)
+    assert cli.main(["--quiet", "run", str(job)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("regimes: error: cannot write ") and "Traceback" not in err[0]
+    assert not (tmp_path / "out").exists()
 
 
 def test_failure_keeps_an_earlier_run_whole(tmp_path, monkeypatch):
