@@ -44,7 +44,8 @@ class RegimeSet:
     kind: str  # "run" (an output folder) or "model" (a model file)
     patterns: xr.DataArray  # (regime, *grid), anomaly
     frequency: np.ndarray  # (regime)
-    mean_duration: np.ndarray  # (regime), days
+    mean_duration: np.ndarray  # (regime), in duration_units
+    duration_units: str  # one time step of the data: 'days' or 'months'
     names: list[str]
     units: str | None
     inputs: list[str]
@@ -76,6 +77,7 @@ def read(path: str | Path) -> RegimeSet:
         return RegimeSet(
             source=str(path), kind="run", patterns=patterns.drop_vars([c for c in patterns.coords if c in ("time", "regime_name")]),
             frequency=stat["frequency"].sel(regime=regimes).values, mean_duration=stat["mean_duration"].sel(regime=regimes).values,
+            duration_units=stat["mean_duration"].attrs.get("units", "days"),
             names=[str(n) for n in comp["regime_name"].values], units=patterns.attrs.get("units"),
             inputs=[str(path / "composites.nc"), str(path / "statistics.nc")],
         )
@@ -90,6 +92,7 @@ def read(path: str | Path) -> RegimeSet:
         source=str(path), kind="model", patterns=patterns.drop_vars("regime_name", errors="ignore"),
         frequency=ds["frequency"].values if "frequency" in ds else nan,
         mean_duration=ds["mean_duration"].values if "mean_duration" in ds else nan,
+        duration_units=ds["mean_duration"].attrs.get("units", "days") if "mean_duration" in ds else "days",
         names=[str(n) for n in ds["regime_name"].values], units=patterns.attrs.get("units"), inputs=[str(path)],
     )
 
@@ -160,6 +163,10 @@ def compare(a: RegimeSet, b: RegimeSet) -> xr.Dataset:
     rows, cols = linear_sum_assignment(np.nan_to_num(corr, nan=-2.0), maximize=True)
     ra, rb = pa["regime"].values, pb["regime"].values
     unit = a.units or "1"
+    same_step = a.duration_units == b.duration_units
+    if not same_step:
+        log.warning("set A counts durations in %s and set B in %s; their difference is left missing", a.duration_units, b.duration_units)
+    duration_difference = b.mean_duration[cols] - a.mean_duration[rows] if same_step else np.full(rows.size, np.nan)
     ds = xr.Dataset(coords={
         "pair": ("pair", np.arange(1, rows.size + 1, dtype=np.int32), {"long_name": "matched pair of regimes", "units": "1"}),
         "regime_a": ("regime_a", ra.astype(np.int32), {"long_name": "regime number in set A", "units": "1"}),
@@ -177,9 +184,10 @@ def compare(a: RegimeSet, b: RegimeSet) -> xr.Dataset:
         "frequency_a": (a.frequency[rows], "fraction of time steps in the regime, set A", "1"),
         "frequency_b": (b.frequency[cols], "fraction of time steps in the regime, set B", "1"),
         "frequency_difference": (b.frequency[cols] - a.frequency[rows], "frequency of B minus frequency of A", "1"),
-        "mean_duration_a": (a.mean_duration[rows], "mean episode duration, set A", "days"),
-        "mean_duration_b": (b.mean_duration[cols], "mean episode duration, set B", "days"),
-        "mean_duration_difference": (b.mean_duration[cols] - a.mean_duration[rows], "mean duration of B minus mean duration of A", "days"),
+        "mean_duration_a": (a.mean_duration[rows], "mean episode duration, set A", a.duration_units),
+        "mean_duration_b": (b.mean_duration[cols], "mean episode duration, set B", b.duration_units),
+        "mean_duration_difference": (duration_difference, "mean duration of B minus mean duration of A (missing when A and B have other time steps)",
+                                     a.duration_units),
     }
     for name, (values, long_name, u) in pair.items():
         ds[name] = ("pair", values, {"long_name": long_name, "units": u})
@@ -200,7 +208,7 @@ def table(ds: xr.Dataset) -> str:
     lines = [
         f"A = {ds.attrs['source_a']}",
         f"B = {ds.attrs['source_b']}",
-        f"{'pair':>4}  {'regime A':<22}{'regime B':<22}{'correlation':>11}  {'RMSE (' + unit + ')':>12}  {'frequency B-A':>13}  {'mean duration B-A (days)':>24}",
+        f"{'pair':>4}  {'regime A':<22}{'regime B':<22}{'correlation':>11}  {'RMSE (' + unit + ')':>12}  {'frequency B-A':>13}  {'mean duration B-A (' + ds['mean_duration_difference'].attrs['units'] + ')':>24}",
     ]
     for p in range(ds.sizes["pair"]):
         row = ds.isel(pair=p)

@@ -129,7 +129,8 @@ def _temporary(path: Path):
     try:
         yield tmp
     finally:
-        tmp.unlink(missing_ok=True)
+        with contextlib.suppress(OSError):  # a read-only file system refuses even to remove a missing file
+            tmp.unlink(missing_ok=True)
 
 
 @contextlib.contextmanager
@@ -166,7 +167,7 @@ def write(ds: xr.Dataset, path: Path) -> Path:
 def write_text(text: str, path: Path) -> Path:
     """Write a text file atomically (temporary name in the same folder, then rename)."""
     path = Path(path)
-    with _temporary(path) as tmp:
+    with _writing(path), _temporary(path) as tmp:
         tmp.write_text(text, encoding="utf-8")
         os.replace(tmp, path)
     return path
@@ -175,10 +176,11 @@ def write_text(text: str, path: Path) -> Path:
 def write_bytes(content: bytes, path: Path) -> Path:
     """Write ``content`` (a figure, a page) to ``path`` atomically, like :func:`write_text`."""
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    with _temporary(path) as tmp:
-        tmp.write_bytes(content)
-        os.replace(tmp, path)
+    with _writing(path):
+        path.parent.mkdir(parents=True, exist_ok=True)
+        with _temporary(path) as tmp:
+            tmp.write_bytes(content)
+            os.replace(tmp, path)
     return path
 
 
@@ -201,20 +203,73 @@ the new one does not write are removed, and no other file."""
 FULL_BELOW_BYTES = 1 << 20
 """A failed write into a folder with less free space than this is taken for a full disk."""
 
+PROBE_BYTES = 1 << 16
+"""Size of the plain write that asks the file system why a write failed."""
+
+
+def _probe(folder: Path) -> int | None:
+    """The error number of a small plain write into ``folder`` (None when it succeeds); the probe file is removed."""
+    probe = folder / f".regimes-write-probe-{os.getpid()}"
+    try:
+        with open(probe, "wb") as handle:
+            handle.write(bytes(PROBE_BYTES))
+            handle.flush()
+            os.fsync(handle.fileno())
+    except OSError as error:
+        return error.errno
+    finally:
+        with contextlib.suppress(OSError):
+            probe.unlink(missing_ok=True)
+    return None
+
 
 def _unwritable(path: Path, error: Exception) -> UserError | None:
-    """The user's error behind a failed write of ``path`` (a full disk, no permission), or None for anything else.
+    """The user's error behind a failed write of ``path``, or None when the failure is not the user's.
 
-    The netCDF library reports a full disk only as 'NetCDF: HDF error', so the
-    free space left in the folder is what tells.
+    Parameters
+    ----------
+    path : Path
+        The file (or folder) that could not be written.
+    error : Exception
+        What the write raised.
+
+    Returns
+    -------
+    UserError or None
+        A full disk, an exceeded quota, no permission or a read-only file
+        system, in one line that says what to do; None for anything else.
+
+    Notes
+    -----
+    The netCDF library reports a full disk as 'NetCDF: HDF error', or as a
+    permission error when the disk is already full as the file is created,
+    and never passes a quota's error number on. So the folder is asked with a
+    small plain write, and its free space is read.
     """
-    code = getattr(error, "errno", None)
+    if isinstance(error, RuntimeError) and "HDF error" not in str(error):
+        return None
+    folder = next(p for p in path.parents if p.exists())
+    code = _probe(folder) or getattr(error, "errno", None)
+    free = shutil.disk_usage(folder).free
+    if code == errno.EDQUOT:
+        return UserError(f"cannot write '{path}': the disk quota is exceeded; free some space or choose another output folder")
+    if code == errno.ENOSPC or free < FULL_BELOW_BYTES:
+        return UserError(f"cannot write '{path}': the disk is full ({free // 1024} KiB free); free some space or choose another output folder")
     if code in (errno.EACCES, errno.EPERM, errno.EROFS):
         return UserError(f"cannot write '{path}': {os.strerror(code).lower()}; choose an output folder you can write to")
-    free = shutil.disk_usage(next(p for p in path.parents if p.exists())).free
-    if code in (errno.ENOSPC, errno.EDQUOT) or free < FULL_BELOW_BYTES:
-        return UserError(f"cannot write '{path}': the disk is full ({free // 1024} KiB free); free some space or choose another output folder")
     return None
+
+
+@contextlib.contextmanager
+def _writing(path: Path):
+    """Turn a failed write of ``path`` into a :class:`UserError` when it is the user's to fix (:func:`_unwritable`)."""
+    try:
+        yield
+    except (OSError, RuntimeError) as error:
+        user_error = _unwritable(path, error)
+        if user_error is None:
+            raise
+        raise user_error from error
 
 
 def write_all(files: dict[str, xr.Dataset | bytes], folder: Path, overwrite: bool) -> list[Path]:
@@ -230,28 +285,18 @@ def write_all(files: dict[str, xr.Dataset | bytes], folder: Path, overwrite: boo
     """
     folder = Path(folder)
     created = not folder.exists()
-    try:
+    with _writing(folder):
         folder.mkdir(parents=True, exist_ok=True)
-    except OSError as error:
-        user_error = _unwritable(folder, error)
-        if user_error is None:
-            raise
-        raise user_error from None
     try:
         with contextlib.ExitStack() as temporaries:
             written = {}
             for name, ds in files.items():
                 written[name] = temporaries.enter_context(_temporary(folder / name))
-                try:
+                with _writing(folder / name):
                     if isinstance(ds, bytes):
                         written[name].write_bytes(ds)
                     else:
                         _to_netcdf(ds, written[name])
-                except (OSError, RuntimeError) as error:
-                    user_error = _unwritable(folder / name, error)
-                    if user_error is None:
-                        raise
-                    raise user_error from None
             with _stop_signals_deferred():
                 for name, tmp in written.items():
                     os.replace(tmp, folder / name)

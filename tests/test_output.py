@@ -3,10 +3,11 @@
 from __future__ import annotations
 
 import errno
-import shutil
 import signal
 import subprocess
 import sys
+from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -52,7 +53,7 @@ def test_a_full_disk_or_a_locked_folder_is_a_user_error(tmp_path, monkeypatch, c
         raise failure
 
     monkeypatch.setattr(output, "_to_netcdf", failing)
-    monkeypatch.setattr(output.shutil, "disk_usage", lambda path: shutil._ntuple_diskusage(10**10, 10**10 - free, free))
+    monkeypatch.setattr(output.shutil, "disk_usage", lambda path: SimpleNamespace(free=free))
     with pytest.raises(UserError, match=message):
         output.write_all({"a.nc": small_dataset()}, tmp_path / "results", overwrite=False)
     assert not (tmp_path / "results").exists()
@@ -66,6 +67,68 @@ def test_a_full_disk_or_a_locked_folder_is_a_user_error(tmp_path, monkeypatch, c
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and err[0].startswith("regimes: error: cannot write ") and "Traceback" not in err[0]
     assert not (tmp_path / "out").exists()
+
+
+@pytest.mark.parametrize("failure, probe, message", [
+    # the netCDF library says 'permission denied' when the disk is already full as it creates the file
+    (PermissionError(errno.EACCES, "Permission denied"), errno.ENOSPC, r"the disk is full"),
+    # and passes no quota error on: the probe write gets it
+    (RuntimeError("NetCDF: HDF error"), errno.EDQUOT, r"the disk quota is exceeded; free some space or choose another output folder"),
+], ids=["permission error on a full disk", "quota"])
+def test_the_probe_write_tells_what_the_netcdf_library_hides(tmp_path, monkeypatch, failure, probe, message):
+    def failing(ds, path):
+        raise failure
+
+    monkeypatch.setattr(output, "_to_netcdf", failing)
+    monkeypatch.setattr(output, "_probe", lambda folder: probe)
+    with pytest.raises(UserError, match=message):
+        output.write_all({"a.nc": small_dataset()}, tmp_path / "results", overwrite=False)
+
+
+def test_other_netcdf_errors_stay_bugs_even_on_a_nearly_full_disk(tmp_path, monkeypatch):
+    def failing(ds, path):
+        raise RuntimeError("NetCDF: Invalid dimension ID or name")
+
+    monkeypatch.setattr(output, "_to_netcdf", failing)
+    monkeypatch.setattr(output.shutil, "disk_usage", lambda path: SimpleNamespace(free=0))
+    with pytest.raises(RuntimeError, match="Invalid dimension"):
+        output.write_all({"a.nc": small_dataset()}, tmp_path / "results", overwrite=False)
+
+
+def test_a_folder_that_cannot_be_made_or_cleaned_is_a_user_error(tmp_path, monkeypatch):
+    real_mkdir = Path.mkdir
+
+    def no_mkdir(self, *args, **kwargs):
+        if self.name == "results":
+            raise PermissionError(errno.EACCES, "Permission denied")
+        return real_mkdir(self, *args, **kwargs)
+
+    monkeypatch.setattr(Path, "mkdir", no_mkdir)
+    monkeypatch.setattr(output, "_probe", lambda folder: errno.EACCES)
+    with pytest.raises(UserError, match=r"cannot write '.*results': permission denied"):
+        output.write_all({"a.nc": small_dataset()}, tmp_path / "results", overwrite=False)
+    monkeypatch.undo()
+    # an existing folder on a read-only file system: even removing the missing temporary file fails there
+    (tmp_path / "existing").mkdir()
+
+    def read_only(*args, **kwargs):
+        raise OSError(errno.EROFS, "Read-only file system")
+
+    monkeypatch.setattr(output, "_to_netcdf", read_only)
+    monkeypatch.setattr(Path, "unlink", read_only)
+    monkeypatch.setattr(output, "_probe", lambda folder: errno.EROFS)
+    with pytest.raises(UserError, match="read-only file system"):
+        output.write_all({"a.nc": small_dataset()}, tmp_path / "existing", overwrite=False)
+
+
+def test_a_figure_on_a_full_disk_is_a_user_error(tmp_path, monkeypatch):
+    def full(self, data):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(Path, "write_bytes", full)
+    with pytest.raises(UserError, match=r"cannot write '.*durations\.png': the disk is full"):
+        output.write_bytes(b"png", tmp_path / "durations.png")
+    assert list(tmp_path.iterdir()) == []
 
 
 def test_failure_keeps_an_earlier_run_whole(tmp_path, monkeypatch):

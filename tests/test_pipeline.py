@@ -264,17 +264,19 @@ dir = "out"
         np.testing.assert_allclose(comp["anomaly_composite"].sel(regime=r).values, expected.values, atol=0.05)
 
 
-def test_monthly_data_give_durations_in_months(tmp_path):
-    # durations count time steps, so monthly data give them in months, in the files and on the figure
-    from regimes import figures, finished
+def test_monthly_data_give_durations_in_months(tmp_path, caplog):
+    # durations count time steps, so monthly data give them in months: in the files, the figure, the report table,
+    # and a comparison with a daily set leaves the difference of durations missing
+    from regimes import compare, figures, finished, report
 
     data, _ = synthetic.planted_regimes(years=20, lat=LAT[::2], lon=LON[::2], k=3, seed=5)
     monthly = data.resample(time="MS").mean()
     monthly.attrs = data.attrs
     synthetic.write_netcdf(monthly, tmp_path / "monthly.nc")
-    cfg, text = write_config(tmp_path, """
+    synthetic.write_netcdf(data.sel(time=slice("1981", "1984")), tmp_path / "daily.nc")
+    job = """
 [data]
-paths = ["monthly.nc"]
+paths = ["{name}.nc"]
 variable = "psl"
 [eof]
 modes = 3
@@ -284,11 +286,20 @@ restarts = 5
 [figures]
 draw = false
 [output]
-dir = "out"
-""")
-    out = pipeline.run(cfg, text)
+dir = "out-{name}"
+"""
+    out = pipeline.run(*write_config(tmp_path, job.format(name="monthly")))
+    daily = pipeline.run(*write_config(tmp_path, job.format(name="daily")))
     with xr.open_dataset(out / "statistics.nc") as st, xr.open_dataset(out / "model.nc") as model:
         assert st["mean_duration"].attrs["units"] == "months" and st["duration"].attrs["units"] == "months"
         assert model["mean_duration"].attrs["units"] == "months"
-    fig = figures.durations(finished.open_folder(out), cfg.figures)
+    with xr.open_dataset(daily / "statistics.nc") as st:
+        assert st["mean_duration"].attrs["units"] == "days"
+    found = finished.open_folder(out)
+    fig = figures.durations(found, config.validate_section("figures", {}))
     assert {ax.get_xlabel() for ax in fig.axes if ax.get_visible() and ax.get_xlabel()} == {"episode duration (months)"}
+    assert "<th>mean mo</th>" in report.regime_table(found) and "<th>months</th>" in report.regime_table(found)
+    both = compare.compare(compare.read(daily), compare.read(out))
+    assert both["mean_duration_b"].attrs["units"] == "months" and both["mean_duration_a"].attrs["units"] == "days"
+    assert np.isnan(both["mean_duration_difference"].values).all()
+    assert any("set A counts durations in days and set B in months" in r.getMessage() for r in caplog.records)
