@@ -122,7 +122,7 @@ def regime_set(patterns, frequency=None, units="Pa", source="x"):
     k = patterns.sizes["regime"]
     return compare.RegimeSet(
         source=source, kind="run", patterns=patterns.assign_coords(regime=np.arange(1, k + 1)),
-        frequency=np.full(k, 1.0 / k) if frequency is None else frequency, mean_duration=np.arange(1.0, k + 1),
+        frequency=np.full(k, 1.0 / k) if frequency is None else frequency, mean_duration=np.arange(1.0, k + 1), duration_units="days",
         names=[f"r{i}" for i in range(1, k + 1)], units=units, inputs=[],
     )
 
