@@ -166,8 +166,9 @@ def statistics_file(cfg, prep, found) -> xr.Dataset:
     tr = s["transitions"]
     for key in tr.data_vars:
         ds[key] = tr[key]
-    ds["transition_count"].attrs = {"long_name": "number of steps from regime_from to regime_to on consecutive days", "units": "1"}
-    ds["transition_probability"].attrs = {"long_name": "probability of regime_to on the next day given regime_from", "units": "1"}
+    step = unit[:-1]  # 'day' or 'month'
+    ds["transition_count"].attrs = {"long_name": f"number of steps from regime_from to regime_to on consecutive {unit}", "units": "1"}
+    ds["transition_probability"].attrs = {"long_name": f"probability of regime_to in the next {step} given regime_from", "units": "1"}
     ds["next_regime_count"].attrs = {"long_name": "number of episodes of regime_from followed directly by regime_to", "units": "1"}
     ds["next_regime_probability"].attrs = {"long_name": "probability that regime_to follows when an episode of regime_from ends", "units": "1"}
     for c in ("regime_from", "regime_to"):

@@ -293,6 +293,7 @@ dir = "out-{name}"
     with xr.open_dataset(out / "statistics.nc") as st, xr.open_dataset(out / "model.nc") as model:
         assert st["mean_duration"].attrs["units"] == "months" and st["duration"].attrs["units"] == "months"
         assert model["mean_duration"].attrs["units"] == "months"
+        assert st["transition_probability"].attrs["long_name"] == "probability of regime_to in the next month given regime_from"
     with xr.open_dataset(daily / "statistics.nc") as st:
         assert st["mean_duration"].attrs["units"] == "days"
     found = finished.open_folder(out)
