@@ -322,6 +322,12 @@ def transitions(run: Finished, style) -> Figure:
     return fig
 
 
+def duration_units(statistics: xr.Dataset) -> tuple[str, str]:
+    """The unit of a statistics file's durations, one time step of the data ('days' or 'months'), and its short form ('d', 'mo')."""
+    unit = statistics["mean_duration"].attrs.get("units", "days")
+    return unit, {"days": "d", "months": "mo"}.get(unit, unit)
+
+
 def durations(run: Finished, style) -> Figure:
     """Episode-duration distribution of each regime, with the geometric law of a first-order Markov chain.
 
@@ -340,8 +346,7 @@ def durations(run: Finished, style) -> Figure:
     fig = _figure(rows * 2.2 + 0.6)
     axes = fig.subplots(rows, cols, sharex=True, sharey=True, squeeze=False).ravel()
     d = st["duration"].values
-    unit = st["duration"].attrs.get("units", "days")
-    short = {"days": "d", "months": "mo"}.get(unit, unit)
+    unit, short = duration_units(st)
     for ax, r, colour in zip(axes, regimes, colours):
         _panel(ax)
         counts = hist.sel(regime=r).values.astype(float)

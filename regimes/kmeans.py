@@ -182,6 +182,17 @@ def _nearest_of_candidates(rows, centres, candidates, m, scratch):
 
 
 @numba.njit(nogil=True, cache=True)
+def _cluster_sums(x, labels, counts, sums):
+    """Number of points ``counts`` (k) and coordinate sums ``sums`` (k, d) of each cluster, from scratch."""
+    counts[:] = 0.0
+    sums[:] = 0.0
+    for i in range(x.shape[0]):
+        counts[labels[i]] += 1.0
+        for t in range(x.shape[1]):
+            sums[labels[i], t] += x[i, t]
+
+
+@numba.njit(nogil=True, cache=True)
 def _assign_all(x, centres, labels, upper, lower, counts, sums, candidates, scratch):
     """Every point to its nearest centre, both bounds exact, cluster counts and sums from scratch."""
     n = x.shape[0]
@@ -189,16 +200,11 @@ def _assign_all(x, centres, labels, upper, lower, counts, sums, candidates, scra
         candidates[i] = i
     _nearest_of_candidates(x, centres, candidates, n, scratch)
     index, best, second = scratch[2], scratch[3], scratch[4]
-    counts[:] = 0.0
-    sums[:] = 0.0
     for i in range(n):
-        j = index[i]
-        labels[i] = j
+        labels[i] = index[i]
         upper[i] = np.sqrt(best[i])
         lower[i] = np.sqrt(second[i])
-        counts[j] += 1.0
-        for t in range(x.shape[1]):
-            sums[j, t] += x[i, t]
+    _cluster_sums(x, labels, counts, sums)
 
 
 @numba.njit(nogil=True, cache=True)
@@ -233,12 +239,7 @@ def _relocate_empty(x, centres, labels, counts):
 @numba.njit(nogil=True, cache=True)
 def _exact_means(x, labels, centres, counts, sums):
     """Centres to the means of their points, summed afresh (the running sums gather rounding over the iterations)."""
-    counts[:] = 0.0
-    sums[:] = 0.0
-    for i in range(x.shape[0]):
-        counts[labels[i]] += 1.0
-        for t in range(x.shape[1]):
-            sums[labels[i], t] += x[i, t]
+    _cluster_sums(x, labels, counts, sums)
     for j in range(centres.shape[0]):
         if counts[j] > 0:
             for t in range(x.shape[1]):

@@ -166,9 +166,8 @@ def regime_table(found: finished.Finished) -> str:
             f"{float(st['median_duration'].sel(regime=r)):.0f}", int(st["max_duration"].sel(regime=r)),
             f"{p:.3f}", f"{1 / (1 - p):.1f}" if p < 1 else "∞",
         ])
-    step = {"days": "d", "months": "mo"}.get(st["mean_duration"].attrs.get("units", "days"), "steps")
-    counted = "days" if step == "d" else "months" if step == "mo" else "steps"
-    head = ["regime", "name", counted if "member" not in found.labels.dims else f"member-{counted}", "frequency %", "episodes",
+    unit, step = figures.duration_units(st)
+    head = ["regime", "name", unit if "member" not in found.labels.dims else f"member-{unit}", "frequency %", "episodes",
             f"mean {step}", f"median {step}", f"longest {step}", "persistence p", f"1/(1−p) {step}"]
     return _table(head, rows, names=2)
 

@@ -166,7 +166,7 @@ def statistics_file(cfg, prep, found) -> xr.Dataset:
     tr = s["transitions"]
     for key in tr.data_vars:
         ds[key] = tr[key]
-    step = unit[:-1]  # 'day' or 'month'
+    step = {"days": "day", "months": "month"}[unit]
     ds["transition_count"].attrs = {"long_name": f"number of steps from regime_from to regime_to on consecutive {unit}", "units": "1"}
     ds["transition_probability"].attrs = {"long_name": f"probability of regime_to in the next {step} given regime_from", "units": "1"}
     ds["next_regime_count"].attrs = {"long_name": "number of episodes of regime_from followed directly by regime_to", "units": "1"}

@@ -227,17 +227,9 @@ dir = "unused"
         assert_identical_outputs(outputs[0], other, config_differs_in="chunk_days")
 
 
-def test_monthly_data_get_a_calendar_month_climatology(tmp_path):
-    """With climatology = auto, monthly means are removed from monthly data (xarray groupby as the reference)."""
-    data, _ = synthetic.planted_regimes(years=30, lat=LAT[::2], lon=LON[::2], k=2, seed=5)
-    monthly = data.resample(time="MS").mean()
-    monthly["psl"].attrs = data["psl"].attrs
-    synthetic.write_netcdf(monthly, tmp_path / "monthly.nc")
-    cfg, text = write_config(
-        tmp_path,
-        """
+SMALL_JOB = """
 [data]
-paths = ["monthly.nc"]
+paths = ["{name}.nc"]
 variable = "psl"
 [eof]
 modes = 3
@@ -247,10 +239,25 @@ restarts = 5
 [figures]
 draw = false
 [output]
-dir = "out"
-""",
-    )
-    out = pipeline.run(cfg, text)
+dir = "out-{name}"
+"""
+"""A small job on the file NAME.nc, writing into out-NAME."""
+
+
+def write_monthly_means(data: xr.Dataset, path) -> xr.Dataset:
+    """Monthly means of a daily field, with its attributes, written to ``path``."""
+    monthly = data.resample(time="MS").mean()
+    monthly.attrs = data.attrs
+    monthly["psl"].attrs = data["psl"].attrs
+    synthetic.write_netcdf(monthly, path)
+    return monthly
+
+
+def test_monthly_data_get_a_calendar_month_climatology(tmp_path):
+    """With climatology = auto, monthly means are removed from monthly data (xarray groupby as the reference)."""
+    data, _ = synthetic.planted_regimes(years=30, lat=LAT[::2], lon=LON[::2], k=2, seed=5)
+    monthly = write_monthly_means(data, tmp_path / "monthly.nc")
+    out = pipeline.run(*write_config(tmp_path, SMALL_JOB.format(name="monthly")))
     model = RegimeModel.load(out / "model.nc")
     assert model.settings["climatology"] == "monthly"
     # each regime's anomaly composite equals the mean, over its months, of the field minus its
@@ -270,26 +277,10 @@ def test_monthly_data_give_durations_in_months(tmp_path, caplog):
     from regimes import compare, figures, finished, report
 
     data, _ = synthetic.planted_regimes(years=20, lat=LAT[::2], lon=LON[::2], k=3, seed=5)
-    monthly = data.resample(time="MS").mean()
-    monthly.attrs = data.attrs
-    synthetic.write_netcdf(monthly, tmp_path / "monthly.nc")
+    write_monthly_means(data, tmp_path / "monthly.nc")
     synthetic.write_netcdf(data.sel(time=slice("1981", "1984")), tmp_path / "daily.nc")
-    job = """
-[data]
-paths = ["{name}.nc"]
-variable = "psl"
-[eof]
-modes = 3
-[regimes]
-k = 2
-restarts = 5
-[figures]
-draw = false
-[output]
-dir = "out-{name}"
-"""
-    out = pipeline.run(*write_config(tmp_path, job.format(name="monthly")))
-    daily = pipeline.run(*write_config(tmp_path, job.format(name="daily")))
+    out = pipeline.run(*write_config(tmp_path, SMALL_JOB.format(name="monthly")))
+    daily = pipeline.run(*write_config(tmp_path, SMALL_JOB.format(name="daily")))
     with xr.open_dataset(out / "statistics.nc") as st, xr.open_dataset(out / "model.nc") as model:
         assert st["mean_duration"].attrs["units"] == "months" and st["duration"].attrs["units"] == "months"
         assert model["mean_duration"].attrs["units"] == "months"
