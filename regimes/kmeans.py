@@ -12,18 +12,21 @@ every centre to the mean of its points, until no assignment changes. Hamerly
 130-140) gives the same iterates while skipping most distance computations:
 each point keeps an upper bound on the distance to its own centre and a lower
 bound on the distance to every other centre; a point whose upper bound is
-strictly below both its lower bound and half the distance from its centre to
-the nearest other centre cannot change cluster (a point on a tie is always
+strictly below its lower bound, or below half the distance from its centre to
+the nearest other centre, cannot change cluster (a point on a tie is always
 re-examined, so ties go to the first centre, as in the plain algorithm).
 
-Each iteration first sorts out, point by point, which points the bounds
-cannot settle (the candidates); their distances to every centre are then
-computed in one pass vectorised over candidates. The kernels are compiled by
-numba and release the GIL, so fits run in parallel on threads. Distances are
-float64 (float32 would save about a tenth of the time, and the bounds would
-have to be widened for its rounding) and no fast-math reordering is used, so
-the iterates are Lloyd's (up to rounding, on ties closer than the last bits
-of a distance) and the same input always gives the same result.
+The bounds are kept as offsets from running sums of the centres' moves, so a
+point that keeps its centre is never rewritten. Each iteration tests every
+point against its bounds in one read-only pass, then gathers the points the
+bounds cannot settle (the candidates) and computes their distances to every
+centre in one pass vectorised over candidates. The bounds are widened by a
+little more than their rounding, so a point within rounding of a tie is
+re-examined too. The kernels are compiled by numba and release the GIL, so
+fits run in parallel on threads. Distances are float64 and no fast-math
+reordering is used, so the iterates are Lloyd's (up to rounding, on ties
+closer than the last bits of a distance) and the same input always gives the
+same result.
 """
 
 from __future__ import annotations
@@ -139,17 +142,19 @@ def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Genera
 
 
 @numba.njit(nogil=True, cache=True)
-def _candidate_distances(rows, candidates, m, centres, gathered, d2):
-    """``d2[j, q]`` = squared distance from centre j to point ``candidates[q]``, for q < m.
+def _nearest_of_candidates(x, centres, candidates, m, index, best, second, scratch):
+    """Nearest centre (the first, on ties) of each point ``candidates[q]``, q < m, and the distances to the nearest two.
 
-    The candidates' rows of the data (n, d) are gathered as the columns of
-    ``gathered`` (d, n) first, so that the inner loop runs contiguously over candidates.
+    Writes ``index[q]``, ``best[q]`` and ``second[q]`` (distances, not squared). The
+    candidates' coordinates are gathered as the columns of ``gathered`` (d, n) first,
+    so that the inner loops run contiguously over candidates and vectorise.
     """
-    d, k = rows.shape[1], centres.shape[0]
+    gathered, d2 = scratch
+    d, k = x.shape[1], centres.shape[0]
     for q in range(m):
         i = candidates[q]
         for t in range(d):
-            gathered[t, q] = rows[i, t]
+            gathered[t, q] = x[i, t]
     for j in range(k):
         for q in range(m):
             d2[j, q] = 0.0
@@ -158,27 +163,17 @@ def _candidate_distances(rows, candidates, m, centres, gathered, d2):
             for q in range(m):
                 diff = gathered[t, q] - c
                 d2[j, q] += diff * diff
-
-
-@numba.njit(nogil=True, cache=True)
-def _two_nearest(d2, m, index, best, second):
-    """For each candidate q < m: nearest centre (the first, on ties) and the squared distances to the nearest two."""
     for q in range(m):
         index[q], best[q], second[q] = 0, d2[0, q], np.inf
-    for j in range(1, d2.shape[0]):
+    for j in range(1, k):
         for q in range(m):  # selects, not branches: they vectorise and never mispredict
-            s, b = d2[j, q], best[q]
-            index[q] = j if s < b else index[q]
-            second[q] = min(second[q], max(s, b))
-            best[q] = min(b, s)
-
-
-@numba.njit(nogil=True, cache=True)
-def _nearest_of_candidates(rows, centres, candidates, m, scratch):
-    """Nearest centre and the two smallest squared distances of ``candidates[:m]``, into ``scratch``."""
-    gathered, d2, index, best, second = scratch
-    _candidate_distances(rows, candidates, m, centres, gathered, d2)
-    _two_nearest(d2, m, index, best, second)
+            s, near = d2[j, q], best[q]
+            index[q] = j if s < near else index[q]
+            second[q] = min(second[q], max(s, near))
+            best[q] = min(near, s)
+    for q in range(m):
+        best[q] = np.sqrt(best[q])
+        second[q] = np.sqrt(second[q])
 
 
 @numba.njit(nogil=True, cache=True)
@@ -193,17 +188,18 @@ def _cluster_sums(x, labels, counts, sums):
 
 
 @numba.njit(nogil=True, cache=True)
-def _assign_all(x, centres, labels, upper, lower, counts, sums, candidates, scratch):
-    """Every point to its nearest centre, both bounds exact, cluster counts and sums from scratch."""
+def _assign_all(x, centres, labels, bounds, counts, sums, work):
+    """Every point to its nearest centre, both bounds exact and their drifts zero, cluster counts and sums from scratch."""
+    upper, lower, drift, fall = bounds
+    candidates, index, best, second, scratch = work
     n = x.shape[0]
     for i in range(n):
         candidates[i] = i
-    _nearest_of_candidates(x, centres, candidates, n, scratch)
-    index, best, second = scratch[2], scratch[3], scratch[4]
+    _nearest_of_candidates(x, centres, candidates, n, index, best, second, scratch)
     for i in range(n):
-        labels[i] = index[i]
-        upper[i] = np.sqrt(best[i])
-        lower[i] = np.sqrt(second[i])
+        labels[i], upper[i], lower[i] = index[i], best[i], second[i]
+    drift[:] = 0.0
+    fall[:] = 0.0
     _cluster_sums(x, labels, counts, sums)
 
 
@@ -271,46 +267,82 @@ def _move_centres(centres, counts, sums, step, half):
 
 
 @numba.njit(nogil=True, cache=True)
-def _fit_one(x, centres, labels, max_iterations):
-    """Lloyd iterations with Hamerly's bounds, in place on ``centres`` (k, d) and ``labels`` (n); returns the inertia."""
+def _farthest_from_first(points, x):
+    """Largest distance of a row of ``points`` from the first point ``x[0]``."""
+    far = 0.0
+    for i in range(points.shape[0]):
+        far = max(far, _distance(points, i, x, 0))
+    return far
+
+
+@numba.njit(nogil=True, cache=True)
+def _fit_one(x, centres, labels, max_iterations, spread):
+    """Lloyd iterations with Hamerly's bounds, in place on ``centres`` (k, d) and ``labels`` (n); returns the inertia.
+
+    A point's bounds are kept as offsets from running sums over the centres: the
+    upper bound is ``upper[i] + drift[a]``, with ``drift[a]`` the distance centre a
+    has moved in all, and the lower bound ``lower[i] - fall[a]``, with ``fall[a]``
+    the summed largest moves of the other centres. So the bounds of a point that
+    keeps its centre are never rewritten, and the test of all points only reads.
+
+    ``spread`` is the largest distance of a point from the first point. Centres
+    are means of points or points, so they stay in the points' convex hull once
+    they have moved, and no distance between a point and a centre exceeds ``scale``.
+    """
     n, d = x.shape
     k = centres.shape[0]
-    upper, lower = np.empty(n), np.empty(n)
+    bounds = (np.empty(n), np.empty(n), np.empty(k), np.empty(k))
+    upper, lower, drift, fall = bounds
     counts, sums = np.empty(k), np.empty((k, d))
     step, half = np.empty(k), np.empty(k)
-    candidates = np.empty(n, dtype=np.intp)
-    scratch = (np.empty((d, n)), np.empty((k, n)), np.empty(n, dtype=np.intp), np.empty(n), np.empty(n))
-    index, best, second = scratch[2], scratch[3], scratch[4]
-    _assign_all(x, centres, labels, upper, lower, counts, sums, candidates, scratch)
+    near, away = np.empty(k), np.empty(k)
+    work = (np.empty(n, dtype=np.intp), np.empty(n, dtype=np.intp), np.empty(n), np.empty(n),
+            (np.empty((d, n)), np.empty((k, n))))
+    candidates, index, best, second, scratch = work
+    failed = np.empty(n, dtype=np.uint8)
+    scale = 2.0 * max(spread, _farthest_from_first(centres, x))
+    _assign_all(x, centres, labels, bounds, counts, sums, work)
+    moves = 0  # since the bounds were last exact
     for _ in range(max_iterations):
         refilled = _relocate_empty(x, centres, labels, counts)
         if refilled < 0:
             break
         if refilled:
-            _assign_all(x, centres, labels, upper, lower, counts, sums, candidates, scratch)
+            _assign_all(x, centres, labels, bounds, counts, sums, work)
+            moves = 0
             continue
         _move_centres(centres, counts, sums, step, half)
+        moves += 1
         largest, runner_up, far = 0.0, 0.0, 0
         for j in range(k):
             if step[j] > largest:
                 runner_up, largest, far = largest, step[j], j
             elif step[j] > runner_up:
                 runner_up = step[j]
-        # the bounds follow the centres; a point they cannot settle is a candidate
+        for j in range(k):
+            drift[j] += step[j]
+            fall[j] += runner_up if j == far else largest
+        # widen the bounds by more than the rounding of the running sums and offsets (about 1e-13 of
+        # the data's spread), so that a point within rounding of a tie is re-examined too
+        margin = (moves + d + 16) * np.finfo(np.float64).eps * (scale + drift.max() + fall.max())
+        # point i (centre a) is a candidate when upper[i] + drift[a] + margin >= max(half[a], lower[i] - fall[a])
+        for j in range(k):
+            near[j] = half[j] - drift[j] - margin
+            away[j] = fall[j] + drift[j] + margin
+        for i in range(n):  # first the test, then the compaction: two short loops without unpredictable branches
+            a = np.uint64(labels[i])  # unsigned: no wrap-around of negative indices to compile in
+            failed[i] = upper[i] >= max(near[a], lower[i] - away[a])
         m = 0
         for i in range(n):
-            a = labels[i]
-            upper[i] += step[a]
-            lower[i] -= runner_up if a == far else largest
-            candidates[m] = i  # kept only if the bounds fail: a compaction without branches
-            m += upper[i] >= max(half[a], lower[i])
-        _nearest_of_candidates(x, centres, candidates, m, scratch)
+            candidates[m] = i  # kept only if the bounds failed
+            m += failed[i]
+        _nearest_of_candidates(x, centres, candidates, m, index, best, second, scratch)
         changed = 0
         for q in range(m):
-            i = candidates[q]
-            j, a = index[q], labels[i]
-            upper[i] = np.sqrt(best[q])
-            lower[i] = np.sqrt(second[q])
+            i, j = candidates[q], index[q]
+            a = labels[i]
+            upper[i] = best[q] - drift[j]
+            lower[i] = second[q] + fall[j]
             if j != a:
                 labels[i] = j
                 counts[a] -= 1.0
@@ -331,8 +363,9 @@ def _fit_one(x, centres, labels, max_iterations):
 
 @numba.njit(nogil=True, cache=True)
 def _fit_all(x, centres, labels, inertia, max_iterations):
+    spread = _farthest_from_first(x, x)
     for r in range(centres.shape[0]):
-        inertia[r] = _fit_one(x, centres[r], labels[r], max_iterations)
+        inertia[r] = _fit_one(x, centres[r], labels[r], max_iterations, spread)
 
 
 def lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300):
