@@ -141,16 +141,21 @@ def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Genera
     return x[chosen]
 
 
+BLOCK = 128
+"""Candidates per pass of the distance kernel: a block's coordinates (d, BLOCK) and squared
+distances (k, BLOCK) stay in the L1 cache (rows 4 KiB apart would collide in it)."""
+
+
 @numba.njit(nogil=True, cache=True)
-def _nearest_of_candidates(x, centres, candidates, m, index, best, second, scratch):
-    """Nearest centre (the first, on ties) of each point ``candidates[q]``, q < m, and the distances to the nearest two.
+def _nearest_in_block(x, centres, candidates, index, best, second, scratch):
+    """Nearest centre (the first, on ties) of each point ``candidates[q]`` (at most BLOCK), and the distances to the nearest two.
 
     Writes ``index[q]``, ``best[q]`` and ``second[q]`` (distances, not squared). The
-    candidates' coordinates are gathered as the columns of ``gathered`` (d, n) first,
-    so that the inner loops run contiguously over candidates and vectorise.
+    candidates' coordinates are gathered as the columns of ``gathered`` (d, BLOCK)
+    first, so that the inner loops run contiguously over candidates and vectorise.
     """
     gathered, d2 = scratch
-    d, k = x.shape[1], centres.shape[0]
+    m, d, k = candidates.size, x.shape[1], centres.shape[0]
     for q in range(m):
         i = candidates[q]
         for t in range(d):
@@ -177,14 +182,23 @@ def _nearest_of_candidates(x, centres, candidates, m, index, best, second, scrat
 
 
 @numba.njit(nogil=True, cache=True)
+def _nearest_of_candidates(x, centres, candidates, m, index, best, second, scratch):
+    """:func:`_nearest_in_block` for ``candidates[:m]``, a block at a time; results in ``index``, ``best``, ``second`` [:m]."""
+    for first in range(0, m, BLOCK):
+        last = min(first + BLOCK, m)
+        _nearest_in_block(x, centres, candidates[first:last], index[first:last], best[first:last], second[first:last], scratch)
+
+
+@numba.njit(nogil=True, cache=True)
 def _cluster_sums(x, labels, counts, sums):
     """Number of points ``counts`` (k) and coordinate sums ``sums`` (k, d) of each cluster, from scratch."""
     counts[:] = 0.0
     sums[:] = 0.0
     for i in range(x.shape[0]):
-        counts[labels[i]] += 1.0
+        a = np.uint64(labels[i])  # unsigned: no wrap-around of negative indices to compile in
+        counts[a] += 1.0
         for t in range(x.shape[1]):
-            sums[labels[i], t] += x[i, t]
+            sums[a, t] += x[i, t]
 
 
 @numba.njit(nogil=True, cache=True)
@@ -276,6 +290,20 @@ def _farthest_from_first(points, x):
 
 
 @numba.njit(nogil=True, cache=True)
+def _inertia(x, centres, labels):
+    """Within-cluster sum of squared distances (units of ``x`` squared)."""
+    total = 0.0
+    for i in range(x.shape[0]):
+        a = np.uint64(labels[i])
+        s = 0.0
+        for t in range(x.shape[1]):
+            diff = x[i, t] - centres[a, t]
+            s += diff * diff
+        total += s
+    return total
+
+
+@numba.njit(nogil=True, cache=True)
 def _fit_one(x, centres, labels, max_iterations, spread):
     """Lloyd iterations with Hamerly's bounds, in place on ``centres`` (k, d) and ``labels`` (n); returns the inertia.
 
@@ -297,7 +325,7 @@ def _fit_one(x, centres, labels, max_iterations, spread):
     step, half = np.empty(k), np.empty(k)
     near, away = np.empty(k), np.empty(k)
     work = (np.empty(n, dtype=np.intp), np.empty(n, dtype=np.intp), np.empty(n), np.empty(n),
-            (np.empty((d, n)), np.empty((k, n))))
+            (np.empty((d, BLOCK)), np.empty((k, BLOCK))))
     candidates, index, best, second, scratch = work
     failed = np.empty(n, dtype=np.uint8)
     scale = 2.0 * max(spread, _farthest_from_first(centres, x))
@@ -339,8 +367,8 @@ def _fit_one(x, centres, labels, max_iterations, spread):
         _nearest_of_candidates(x, centres, candidates, m, index, best, second, scratch)
         changed = 0
         for q in range(m):
-            i, j = candidates[q], index[q]
-            a = labels[i]
+            i, j = candidates[q], np.uint64(index[q])
+            a = np.uint64(labels[i])
             upper[i] = best[q] - drift[j]
             lower[i] = second[q] + fall[j]
             if j != a:
@@ -354,11 +382,7 @@ def _fit_one(x, centres, labels, max_iterations, spread):
         if changed == 0:
             _exact_means(x, labels, centres, counts, sums)
             break
-    inertia = 0.0
-    for i in range(n):
-        s = _distance(x, i, centres, labels[i])
-        inertia += s * s
-    return inertia
+    return _inertia(x, centres, labels)
 
 
 @numba.njit(nogil=True, cache=True)

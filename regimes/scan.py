@@ -106,9 +106,10 @@ def pair_similarity(centres: np.ndarray) -> np.ndarray:
     -------
     array (r, r); the diagonal is 1 up to rounding.
     """
-    unit = centres / np.maximum(np.linalg.norm(centres, axis=-1, keepdims=True), 1e-300)
-    corr = np.einsum("pid,qjd->pqij", unit, unit)
-    return corr.max(3).min(2)
+    r, k, d = centres.shape
+    unit = (centres / np.maximum(np.linalg.norm(centres, axis=-1, keepdims=True), 1e-300)).reshape(r * k, d)
+    corr = (unit @ unit.T).reshape(r, k, r, k)  # [m, i, n, j]: centroid i of restart m against centroid j of restart n
+    return corr.max(3).min(1)
 
 
 def classifiability(centres: np.ndarray) -> float:
