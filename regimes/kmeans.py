@@ -20,13 +20,17 @@ The bounds are kept as offsets from running sums of the centres' moves, so a
 point that keeps its centre is never rewritten. Each iteration tests every
 point against its bounds in one read-only pass, then gathers the points the
 bounds cannot settle (the candidates) and computes their distances to every
-centre in one pass vectorised over candidates. The bounds are widened by a
-little more than their rounding, so a point within rounding of a tie is
-re-examined too. The kernels are compiled by numba and release the GIL, so
-fits run in parallel on threads. Distances are float64 and no fast-math
-reordering is used, so the iterates are Lloyd's (up to rounding, on ties
-closer than the last bits of a distance) and the same input always gives the
-same result.
+centre in one pass vectorised over candidates, a cache-sized block at a
+time. Those distances are screened in float32 on data shifted to their mean
+and scaled by a power of two, with a bound on the float32 error (derived in
+:func:`_fit_one`): where the two nearest centres are further apart than
+that, the nearest is the one float64 arithmetic finds; near ties are
+computed again in float64. The bounds are widened by the float32 error and a
+little more than their own rounding, so a point within rounding of a tie is
+re-examined. So the iterates are exactly those of Lloyd's algorithm in
+float64, without fast-math reordering, and the same input always gives the
+same result. Centre sums stay in float64. The kernels are compiled by numba
+and release the GIL, so fits run in parallel on threads.
 """
 
 from __future__ import annotations
@@ -146,47 +150,111 @@ BLOCK = 128
 distances (k, BLOCK) stay in the L1 cache (rows 4 KiB apart would collide in it)."""
 
 
-@numba.njit(nogil=True, cache=True)
-def _nearest_in_block(x, centres, candidates, index, best, second, scratch):
-    """Nearest centre (the first, on ties) of each point ``candidates[q]`` (at most BLOCK), and the distances to the nearest two.
+def _single_precision(x: np.ndarray):
+    """``x`` in float32 for the distance kernel: shifted to its mean and scaled by a power of two to norms <= 1.
 
-    Writes ``index[q]``, ``best[q]`` and ``second[q]`` (distances, not squared). The
-    candidates' coordinates are gathered as the columns of ``gathered`` (d, BLOCK)
-    first, so that the inner loops run contiguously over candidates and vectorise.
+    Returns ``(x32, origin, factor)`` with ``x32 = float32((x - origin) * factor)``.
+    The power of two keeps the scaling exact and the squares far from float32's
+    overflow and underflow, whatever the units of ``x``.
     """
-    gathered, d2 = scratch
-    m, d, k = candidates.size, x.shape[1], centres.shape[0]
+    origin = x.mean(axis=0)
+    radius = float(np.sqrt(((x - origin) ** 2).sum(axis=1).max()))
+    factor = 2.0 ** -np.ceil(np.log2(radius)) if radius > 0 else 1.0
+    return np.ascontiguousarray((x - origin) * factor, dtype=np.float32), origin, factor
+
+
+@numba.njit(nogil=True, cache=True)
+def _to_single(centres, origin, factor, out):
+    """``out`` = float32((centres - origin) * factor), the centres as the kernel sees the points; returns max squared norm."""
+    largest = 0.0
+    for j in range(centres.shape[0]):
+        s = 0.0
+        for t in range(centres.shape[1]):
+            v = (centres[j, t] - origin[t]) * factor
+            out[j, t] = v
+            s += v * v
+        largest = max(largest, s)
+    return largest
+
+
+@numba.njit(nogil=True, cache=True)
+def _nearest_exact(x, i, centres):
+    """Nearest centre of point ``x[i]`` (the first, on ties) and the squared distances to the nearest two, in float64."""
+    index, best, second = 0, np.inf, np.inf
+    for j in range(centres.shape[0]):
+        s = 0.0
+        for t in range(x.shape[1]):
+            diff = x[i, t] - centres[j, t]
+            s += diff * diff
+        index = j if s < best else index
+        second = min(second, max(s, best))
+        best = min(best, s)
+    return index, best, second
+
+
+@numba.njit(nogil=True, cache=True)
+def _nearest_in_block(points, centres, tolerance, unscale, candidates, index, best, second, scratch):
+    """Nearest centre (the first, on ties) of each point ``candidates[q]`` (at most BLOCK), and bounds on the distances.
+
+    ``points`` and ``centres`` are pairs (float64 as given, float32 as
+    :func:`_single_precision` makes them). Squared distances are screened in
+    float32: its error is at most ``tolerance`` (in the scaled units), so a
+    candidate whose two nearest float32 distances are more than twice that apart
+    has the nearest centre float64 arithmetic would find; the others (near ties)
+    are computed again in float64. So ``index[q]`` is exactly Lloyd's choice,
+    ``best[q]`` an upper bound on the distance to that centre and ``second[q]`` a
+    lower bound on the distance to every other centre (distances, not squared, in
+    the units of the points). The candidates' float32 coordinates are gathered as
+    the columns of a (d, BLOCK) array first, so that the inner loops run
+    contiguously over candidates and vectorise.
+    """
+    x, x32 = points
+    centres64, centres32 = centres
+    gathered, d2, ranks, nearest, runner_up = scratch
+    m, d, k = candidates.size, x.shape[1], centres64.shape[0]
     for q in range(m):
         i = candidates[q]
         for t in range(d):
-            gathered[t, q] = x[i, t]
+            gathered[t, q] = x32[i, t]
     for j in range(k):
         for q in range(m):
             d2[j, q] = 0.0
         for t in range(d):
-            c = centres[j, t]
+            c = centres32[j, t]
             for q in range(m):
                 diff = gathered[t, q] - c
                 d2[j, q] += diff * diff
     for q in range(m):
-        index[q], best[q], second[q] = 0, d2[0, q], np.inf
+        ranks[0, q], nearest[0, q], runner_up[0, q] = 0, d2[0, q], np.inf
     for j in range(1, k):
-        for q in range(m):  # selects, not branches: they vectorise and never mispredict
-            s, near = d2[j, q], best[q]
-            index[q] = j if s < near else index[q]
-            second[q] = min(second[q], max(s, near))
-            best[q] = min(near, s)
+        old, new = (j - 1) % 2, j % 2
+        for q in range(m):  # from one row to the other, with selects: no branches, no (slow) masked stores
+            s, near = d2[j, q], nearest[old, q]
+            ranks[new, q] = j if s < near else ranks[old, q]
+            runner_up[new, q] = min(runner_up[old, q], max(s, near))
+            nearest[new, q] = min(near, s)
+    last = (k - 1) % 2
+    ties = 0
     for q in range(m):
-        best[q] = np.sqrt(best[q])
-        second[q] = np.sqrt(second[q])
+        b, s = np.float64(nearest[last, q]), np.float64(runner_up[last, q])
+        index[q] = ranks[last, q]
+        best[q] = np.sqrt(b + tolerance) * unscale
+        second[q] = np.sqrt(max(s - tolerance, 0.0)) * unscale
+        ties += s - b <= 2.0 * tolerance
+    if ties:
+        for q in range(m):
+            if np.float64(runner_up[last, q]) - np.float64(nearest[last, q]) <= 2.0 * tolerance:
+                j, b, s = _nearest_exact(x, candidates[q], centres64)
+                index[q], best[q], second[q] = j, np.sqrt(b), np.sqrt(s)
 
 
 @numba.njit(nogil=True, cache=True)
-def _nearest_of_candidates(x, centres, candidates, m, index, best, second, scratch):
+def _nearest_of_candidates(points, centres, tolerance, unscale, candidates, m, index, best, second, scratch):
     """:func:`_nearest_in_block` for ``candidates[:m]``, a block at a time; results in ``index``, ``best``, ``second`` [:m]."""
     for first in range(0, m, BLOCK):
         last = min(first + BLOCK, m)
-        _nearest_in_block(x, centres, candidates[first:last], index[first:last], best[first:last], second[first:last], scratch)
+        _nearest_in_block(points, centres, tolerance, unscale, candidates[first:last],
+                          index[first:last], best[first:last], second[first:last], scratch)
 
 
 @numba.njit(nogil=True, cache=True)
@@ -202,14 +270,15 @@ def _cluster_sums(x, labels, counts, sums):
 
 
 @numba.njit(nogil=True, cache=True)
-def _assign_all(x, centres, labels, bounds, counts, sums, work):
-    """Every point to its nearest centre, both bounds exact and their drifts zero, cluster counts and sums from scratch."""
+def _assign_all(points, centres, tolerance, unscale, labels, bounds, counts, sums, work):
+    """Every point to its nearest centre, fresh bounds and their drifts zero, cluster counts and sums from scratch."""
+    x = points[0]
     upper, lower, drift, fall = bounds
     candidates, index, best, second, scratch = work
     n = x.shape[0]
     for i in range(n):
         candidates[i] = i
-    _nearest_of_candidates(x, centres, candidates, n, index, best, second, scratch)
+    _nearest_of_candidates(points, centres, tolerance, unscale, candidates, n, index, best, second, scratch)
     for i in range(n):
         labels[i], upper[i], lower[i] = index[i], best[i], second[i]
     drift[:] = 0.0
@@ -304,19 +373,22 @@ def _inertia(x, centres, labels):
 
 
 @numba.njit(nogil=True, cache=True)
-def _fit_one(x, centres, labels, max_iterations, spread):
+def _fit_one(points, origin, factor, centres, labels, max_iterations, spread):
     """Lloyd iterations with Hamerly's bounds, in place on ``centres`` (k, d) and ``labels`` (n); returns the inertia.
 
-    A point's bounds are kept as offsets from running sums over the centres: the
-    upper bound is ``upper[i] + drift[a]``, with ``drift[a]`` the distance centre a
-    has moved in all, and the lower bound ``lower[i] - fall[a]``, with ``fall[a]``
-    the summed largest moves of the other centres. So the bounds of a point that
-    keeps its centre are never rewritten, and the test of all points only reads.
+    ``points`` is the pair (x, x32) of :func:`_single_precision`, with its
+    ``origin`` and ``factor``. A point's bounds are kept as offsets from running
+    sums over the centres: the upper bound is ``upper[i] + drift[a]``, with
+    ``drift[a]`` the distance centre a has moved in all, and the lower bound
+    ``lower[i] - fall[a]``, with ``fall[a]`` the summed largest moves of the other
+    centres. So the bounds of a point that keeps its centre are never rewritten,
+    and the test of all points only reads.
 
     ``spread`` is the largest distance of a point from the first point. Centres
     are means of points or points, so they stay in the points' convex hull once
     they have moved, and no distance between a point and a centre exceeds ``scale``.
     """
+    x = points[0]
     n, d = x.shape
     k = centres.shape[0]
     bounds = (np.empty(n), np.empty(n), np.empty(k), np.empty(k))
@@ -325,21 +397,32 @@ def _fit_one(x, centres, labels, max_iterations, spread):
     step, half = np.empty(k), np.empty(k)
     near, away = np.empty(k), np.empty(k)
     work = (np.empty(n, dtype=np.intp), np.empty(n, dtype=np.intp), np.empty(n), np.empty(n),
-            (np.empty((d, BLOCK)), np.empty((k, BLOCK))))
+            (np.empty((d, BLOCK), dtype=np.float32), np.empty((k, BLOCK), dtype=np.float32),
+             np.empty((2, BLOCK), dtype=np.intp), np.empty((2, BLOCK), dtype=np.float32), np.empty((2, BLOCK), dtype=np.float32)))
     candidates, index, best, second, scratch = work
     failed = np.empty(n, dtype=np.uint8)
+    pair = (centres, np.empty((k, d), dtype=np.float32))
+    # Error of a float32 squared distance against float64's, in the scaled units where no point or centre has
+    # a norm above r (r = 1, or the initial centres' largest norm), with u = 2**-24: rounding the coordinates and
+    # their difference errs by e_t <= 2u (|y_t| + |c_t|), so |e| <= 4ur; the squares then err by at most
+    # 2|e||y - c| + |e|^2 <= 16.1ur^2 (|y - c| <= 2r), and rounding the d squares and their sum by d u 4r^2 more;
+    # float64's own rounding is far below. In all, under (4d + 17) u r^2: the tolerance has some room.
+    tolerance = (4 * d + 20) * 2.0**-24 * max(1.0, _to_single(centres, origin, factor, pair[1]))
+    unscale = 1.0 / factor
     scale = 2.0 * max(spread, _farthest_from_first(centres, x))
-    _assign_all(x, centres, labels, bounds, counts, sums, work)
-    moves = 0  # since the bounds were last exact
+    _assign_all(points, pair, tolerance, unscale, labels, bounds, counts, sums, work)
+    moves = 0  # since the bounds were last set afresh
     for _ in range(max_iterations):
         refilled = _relocate_empty(x, centres, labels, counts)
         if refilled < 0:
             break
         if refilled:
-            _assign_all(x, centres, labels, bounds, counts, sums, work)
+            _to_single(centres, origin, factor, pair[1])
+            _assign_all(points, pair, tolerance, unscale, labels, bounds, counts, sums, work)
             moves = 0
             continue
         _move_centres(centres, counts, sums, step, half)
+        _to_single(centres, origin, factor, pair[1])
         moves += 1
         largest, runner_up, far = 0.0, 0.0, 0
         for j in range(k):
@@ -364,7 +447,7 @@ def _fit_one(x, centres, labels, max_iterations, spread):
         for i in range(n):
             candidates[m] = i  # kept only if the bounds failed
             m += failed[i]
-        _nearest_of_candidates(x, centres, candidates, m, index, best, second, scratch)
+        _nearest_of_candidates(points, pair, tolerance, unscale, candidates, m, index, best, second, scratch)
         changed = 0
         for q in range(m):
             i, j = candidates[q], np.uint64(index[q])
@@ -386,10 +469,10 @@ def _fit_one(x, centres, labels, max_iterations, spread):
 
 
 @numba.njit(nogil=True, cache=True)
-def _fit_all(x, centres, labels, inertia, max_iterations):
-    spread = _farthest_from_first(x, x)
+def _fit_all(points, origin, factor, centres, labels, inertia, max_iterations):
+    spread = _farthest_from_first(points[0], points[0])
     for r in range(centres.shape[0]):
-        inertia[r] = _fit_one(x, centres[r], labels[r], max_iterations, spread)
+        inertia[r] = _fit_one(points, origin, factor, centres[r], labels[r], max_iterations, spread)
 
 
 def lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300):
@@ -430,5 +513,6 @@ def lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300):
     centres = np.array(centres, dtype=np.float64, order="C")
     labels = np.empty((centres.shape[0], x.shape[0]), dtype=np.intp)
     inertia = np.empty(centres.shape[0])
-    _fit_all(x, centres, labels, inertia, int(max_iterations))
+    x32, origin, factor = _single_precision(x)
+    _fit_all((x, x32), origin, factor, centres, labels, inertia, int(max_iterations))
     return centres, labels, inertia

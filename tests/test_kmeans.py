@@ -89,6 +89,25 @@ def test_same_iterates_as_the_textbook_algorithm_on_small_integer_data():
     assert compared >= 300
 
 
+def test_near_ties_in_float32_are_settled_in_float64():
+    # 1e-9 is below float32's resolution at the centres' distance (its unit in the last place at 1 is 1.2e-7), so
+    # in float32 the two middle points are equally far from both centres; float64 sees which is nearer
+    x = np.array([[-5.0], [5.0], [1e-9], [-1e-9]])
+    start = np.array([[[-1.0], [1.0]]])
+    _, labels, _ = lloyd(x, start, max_iterations=0)  # the first assignment only
+    np.testing.assert_array_equal(labels[0], [0, 1, 1, 0])
+
+
+@pytest.mark.parametrize("scale, offset", [(1.0, 1e6), (1e-20, 0.0), (1e25, -3e25), (3.0, 0.0)])
+def test_same_iterates_as_the_textbook_algorithm_at_any_scale_and_offset(scale, offset):
+    # the float32 screening shifts and scales the data itself; the iterates stay those of float64 arithmetic
+    x = red_noise(800, 5, 0.8, seed=11) * scale + offset
+    start = kmeans_plus_plus(x, 5, 3, np.random.default_rng(11))
+    _, labels, _ = lloyd(x, start)
+    for r in range(3):
+        np.testing.assert_array_equal(labels[r], textbook_lloyd(x, start[r])[1])
+
+
 def slow_greedy_seeding(x, k, restarts, rng):
     """Greedy k-means++ (Arthur & Vassilvitskii 2007; the greedy variant with 2 + floor(ln k) candidates, as
     scikit-learn documents it), written plainly with the same draws: the first centre uniform, each next one the
