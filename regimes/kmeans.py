@@ -146,7 +146,7 @@ def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Genera
 
 
 BLOCK = 128
-"""Candidates per pass of the distance kernel: a block's coordinates (d, BLOCK) and squared
+"""Candidates per pass of the distance kernel: a block's float32 coordinates (d, BLOCK) and squared
 distances (k, BLOCK) stay in the L1 cache (rows 4 KiB apart would collide in it)."""
 
 
@@ -240,10 +240,10 @@ def _nearest_in_block(points, centres, tolerance, unscale, candidates, index, be
         index[q] = ranks[last, q]
         best[q] = np.sqrt(b + tolerance) * unscale
         second[q] = np.sqrt(max(s - tolerance, 0.0)) * unscale
-        ties += s - b <= 2.0 * tolerance
+        ties += not s - b > 2.0 * tolerance  # "not >": a NaN (float32 overflow, centres absurdly far) is a tie too
     if ties:
         for q in range(m):
-            if np.float64(runner_up[last, q]) - np.float64(nearest[last, q]) <= 2.0 * tolerance:
+            if not np.float64(runner_up[last, q]) - np.float64(nearest[last, q]) > 2.0 * tolerance:
                 j, b, s = _nearest_exact(x, candidates[q], centres64)
                 index[q], best[q], second[q] = j, np.sqrt(b), np.sqrt(s)
 
