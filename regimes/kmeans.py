@@ -27,10 +27,17 @@ and scaled by a power of two, with a bound on the float32 error (derived in
 that, the nearest is the one float64 arithmetic finds; near ties are
 computed again in float64. The bounds are widened by the float32 error and a
 little more than their own rounding, so a point within rounding of a tie is
-re-examined. So the iterates are exactly those of Lloyd's algorithm in
-float64, without fast-math reordering, and the same input always gives the
-same result. Centre sums stay in float64. The kernels are compiled by numba
-and release the GIL, so fits run in parallel on threads.
+re-examined.
+
+Every assignment is therefore the one float64 arithmetic makes for that
+iteration's centres. The centres come from cluster sums updated point by
+point, which can differ in the last bits from sums taken afresh (a point
+within that rounding of a tie can then take another path than in a plain
+implementation); a fit ends only after an iteration whose centres are means
+summed afresh moves no point, so its result is a fixed point of Lloyd's
+algorithm in float64. No fast-math reordering is used, and the same input
+always gives the same result. The kernels are compiled by numba and release
+the GIL, so fits run in parallel on threads.
 """
 
 from __future__ import annotations
@@ -97,11 +104,18 @@ def _seed_all(columns, first, draws, chosen):
         _seed_one(columns, first[r], draws[:, r], chosen[r], closest, cumulative, trial)
 
 
+LARGEST = 1e150
+"""Largest magnitude of a k-means coordinate: squared distances of points with up to 10**4
+coordinates this large stay below float64's overflow (1.8e308)."""
+
+
 def _finite(x: np.ndarray) -> np.ndarray:
-    """``x`` as a C-ordered float64 array; a ValueError if it holds NaN or infinite values (PCs never do)."""
+    """``x`` as a C-ordered float64 array; a ValueError if it holds NaN, infinite or too large values (PCs never do)."""
     x = np.ascontiguousarray(x, dtype=np.float64)
     if not np.isfinite(x).all():
         raise ValueError("k-means input holds NaN or infinite values")
+    if x.size and np.abs(x).max() > LARGEST:
+        raise ValueError(f"k-means input holds values above {LARGEST:g}: squared distances would overflow float64")
     return x
 
 
@@ -135,7 +149,7 @@ def kmeans_plus_plus(x: np.ndarray, k: int, restarts: int, rng: np.random.Genera
     Raises
     ------
     ValueError
-        If ``x`` holds NaN or infinite values.
+        If ``x`` holds NaN or infinite values, or values above :data:`LARGEST`.
     """
     x = _finite(x)
     first = rng.integers(x.shape[0], size=restarts)
@@ -201,7 +215,7 @@ def _nearest_in_block(points, centres, tolerance, unscale, candidates, index, be
     float32: its error is at most ``tolerance`` (in the scaled units), so a
     candidate whose two nearest float32 distances are more than twice that apart
     has the nearest centre float64 arithmetic would find; the others (near ties)
-    are computed again in float64. So ``index[q]`` is exactly Lloyd's choice,
+    are computed again in float64. So ``index[q]`` is float64's choice,
     ``best[q]`` an upper bound on the distance to that centre and ``second[q]`` a
     lower bound on the distance to every other centre (distances, not squared, in
     the units of the points). The candidates' float32 coordinates are gathered as
@@ -316,16 +330,6 @@ def _relocate_empty(x, centres, labels, counts):
 
 
 @numba.njit(nogil=True, cache=True)
-def _exact_means(x, labels, centres, counts, sums):
-    """Centres to the means of their points, summed afresh (the running sums gather rounding over the iterations)."""
-    _cluster_sums(x, labels, counts, sums)
-    for j in range(centres.shape[0]):
-        if counts[j] > 0:
-            for t in range(x.shape[1]):
-                centres[j, t] = sums[j, t] / counts[j]
-
-
-@numba.njit(nogil=True, cache=True)
 def _move_centres(centres, counts, sums, step, half):
     """Centres to the means of their points; ``step[j]`` how far centre j moved, ``half[j]`` half the distance to its nearest other centre."""
     k, d = centres.shape
@@ -406,12 +410,17 @@ def _fit_one(points, origin, factor, centres, labels, max_iterations, spread):
     # a norm above r (r = 1, or the initial centres' largest norm), with u = 2**-24: rounding the coordinates and
     # their difference errs by e_t <= 2u (|y_t| + |c_t|), so |e| <= 4ur; the squares then err by at most
     # 2|e||y - c| + |e|^2 <= 16.1ur^2 (|y - c| <= 2r), and rounding the d squares and their sum by d u 4r^2 more;
-    # float64's own rounding is far below. In all, under (4d + 17) u r^2: the tolerance has some room.
-    tolerance = (4 * d + 20) * 2.0**-24 * max(1.0, _to_single(centres, origin, factor, pair[1]))
+    # float64's own rounding is far below. In all, under (4d + 17) u r^2: the tolerance has some room. Only where
+    # float64's squares are subnormal (data of size 1e-154 or less) does its absolute rounding, up to 2**-1074
+    # per square and per sum, count: the second term (inf if factor**2 overflows: then every candidate goes
+    # to float64).
+    tolerance = ((4 * d + 20) * 2.0**-24 * max(1.0, _to_single(centres, origin, factor, pair[1]))
+                 + 2 * d * 2.0**-1074 * factor * factor)
     unscale = 1.0 / factor
     scale = 2.0 * max(spread, _farthest_from_first(centres, x))
     _assign_all(points, pair, tolerance, unscale, labels, bounds, counts, sums, work)
     moves = 0  # since the bounds were last set afresh
+    fresh = True  # the cluster sums were just taken afresh, not updated point by point
     for _ in range(max_iterations):
         refilled = _relocate_empty(x, centres, labels, counts)
         if refilled < 0:
@@ -419,7 +428,7 @@ def _fit_one(points, origin, factor, centres, labels, max_iterations, spread):
         if refilled:
             _to_single(centres, origin, factor, pair[1])
             _assign_all(points, pair, tolerance, unscale, labels, bounds, counts, sums, work)
-            moves = 0
+            moves, fresh = 0, True
             continue
         _move_centres(centres, counts, sums, step, half)
         _to_single(centres, origin, factor, pair[1])
@@ -463,8 +472,10 @@ def _fit_one(points, origin, factor, centres, labels, max_iterations, spread):
                     sums[j, t] += x[i, t]
                 changed += 1
         if changed == 0:
-            _exact_means(x, labels, centres, counts, sums)
-            break
+            if fresh:
+                break  # the centres are the means of their points summed afresh, and no point moved: a fixed point
+            _cluster_sums(x, labels, counts, sums)  # afresh, so that the next centres are exact means, checked once more
+        fresh = changed == 0
     return _inertia(x, centres, labels)
 
 
@@ -500,7 +511,7 @@ def lloyd(x: np.ndarray, centres: np.ndarray, max_iterations: int = 300):
     Raises
     ------
     ValueError
-        If ``x`` holds NaN or infinite values.
+        If ``x`` holds NaN or infinite values, or values above :data:`LARGEST`.
 
     Notes
     -----

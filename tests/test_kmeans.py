@@ -108,6 +108,37 @@ def test_same_iterates_as_the_textbook_algorithm_at_any_scale_and_offset(scale, 
         np.testing.assert_array_equal(labels[r], textbook_lloyd(x, start[r])[1])
 
 
+def test_subnormal_squares_decide_as_float64_does():
+    # at 1e-160 the squared distances are subnormal: float64 sees the third point equally far (1e-320) from both
+    # centres and gives it the first, though it is nearer the second; the kernel follows float64
+    x = np.array([[-1.0], [1.0], [1e-5]]) * 1e-160
+    _, labels, _ = lloyd(x, np.array([[[-1.0], [1.0]]]) * 1e-160, max_iterations=0)
+    np.testing.assert_array_equal(labels[0], [0, 1, 0])
+
+
+def test_values_whose_squares_overflow_are_a_programming_error():
+    with pytest.raises(ValueError, match="above 1e.150"):
+        lloyd(np.array([[0.0], [1e155]]), np.array([[[0.0], [1.0]]]))
+
+
+def test_a_converged_fit_is_a_fixed_point_to_the_last_bit():
+    # a large mean and a small spread make the point-by-point cluster sums round differently from sums taken
+    # afresh; a fit still ends with every centre the mean of its points (summed in order) and every point at
+    # its nearest centre (squared distances summed in order), exactly
+    x = red_noise(3000, 6, 0.9, seed=24) * 2e-5 + 1e6
+    centres, labels, _ = lloyd(x, kmeans_plus_plus(x, 3, 10, np.random.default_rng(24)))
+    for r in range(10):
+        d2 = np.zeros((x.shape[0], 3))
+        for t in range(x.shape[1]):
+            d2 += (x[:, t:t + 1] - centres[r][None, :, t]) ** 2
+        np.testing.assert_array_equal(d2.argmin(1), labels[r])
+        sums, counts = np.zeros((3, x.shape[1])), np.zeros(3)
+        for i in range(x.shape[0]):
+            sums[labels[r][i]] += x[i]
+            counts[labels[r][i]] += 1
+        np.testing.assert_array_equal(centres[r], sums / counts[:, None])
+
+
 def slow_greedy_seeding(x, k, restarts, rng):
     """Greedy k-means++ (Arthur & Vassilvitskii 2007; the greedy variant with 2 + floor(ln k) candidates, as
     scikit-learn documents it), written plainly with the same draws: the first centre uniform, each next one the
