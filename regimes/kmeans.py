@@ -47,13 +47,19 @@ import numpy as np
 
 
 @numba.njit(nogil=True, cache=True)
-def _distance(x, i, centres, j):
-    """Euclidean distance from point ``x[i]`` to ``centres[j]``."""
+def _squared_distance(x, i, centres, j):
+    """Squared Euclidean distance from point ``x[i]`` to ``centres[j]``, summed over coordinates in order."""
     s = 0.0
     for t in range(x.shape[1]):
         diff = x[i, t] - centres[j, t]
         s += diff * diff
-    return np.sqrt(s)
+    return s
+
+
+@numba.njit(nogil=True, cache=True)
+def _distance(x, i, centres, j):
+    """Euclidean distance from point ``x[i]`` to ``centres[j]``."""
+    return np.sqrt(_squared_distance(x, i, centres, j))
 
 
 @numba.njit(nogil=True, cache=True)
@@ -172,9 +178,10 @@ def _single_precision(x: np.ndarray):
     overflow and underflow, whatever the units of ``x``.
     """
     origin = x.mean(axis=0)
-    radius = float(np.sqrt(((x - origin) ** 2).sum(axis=1).max()))
+    shifted = x - origin
+    radius = float(np.sqrt((shifted**2).sum(axis=1).max()))
     factor = 2.0 ** -np.ceil(np.log2(radius)) if radius > 0 else 1.0
-    return np.ascontiguousarray((x - origin) * factor, dtype=np.float32), origin, factor
+    return np.ascontiguousarray(shifted * factor, dtype=np.float32), origin, factor
 
 
 @numba.njit(nogil=True, cache=True)
@@ -196,10 +203,7 @@ def _nearest_exact(x, i, centres):
     """Nearest centre of point ``x[i]`` (the first, on ties) and the squared distances to the nearest two, in float64."""
     index, best, second = 0, np.inf, np.inf
     for j in range(centres.shape[0]):
-        s = 0.0
-        for t in range(x.shape[1]):
-            diff = x[i, t] - centres[j, t]
-            s += diff * diff
+        s = _squared_distance(x, i, centres, j)
         index = j if s < best else index
         second = min(second, max(s, best))
         best = min(best, s)
@@ -367,12 +371,7 @@ def _inertia(x, centres, labels):
     """Within-cluster sum of squared distances (units of ``x`` squared)."""
     total = 0.0
     for i in range(x.shape[0]):
-        a = np.uint64(labels[i])
-        s = 0.0
-        for t in range(x.shape[1]):
-            diff = x[i, t] - centres[a, t]
-            s += diff * diff
-        total += s
+        total += _squared_distance(x, i, centres, np.uint64(labels[i]))
     return total
 
 

@@ -90,8 +90,9 @@ def test_same_iterates_as_the_textbook_algorithm_on_small_integer_data():
 
 
 def test_near_ties_in_float32_are_settled_in_float64():
-    # 1e-9 is below float32's resolution at the centres' distance (its unit in the last place at 1 is 1.2e-7), so
-    # in float32 the two middle points are equally far from both centres; float64 sees which is nearer
+    # 1e-9 is below float32's resolution at the centres' distance (its unit in the last place at 1 is 2**-23,
+    # 1.2e-7; IEEE 754 binary32), so in float32 the two middle points are equally far from both centres;
+    # float64 sees which is nearer
     x = np.array([[-5.0], [5.0], [1e-9], [-1e-9]])
     start = np.array([[[-1.0], [1.0]]])
     _, labels, _ = lloyd(x, start, max_iterations=0)  # the first assignment only
@@ -109,7 +110,7 @@ def test_same_iterates_as_the_textbook_algorithm_at_any_scale_and_offset(scale, 
 
 
 def test_subnormal_squares_decide_as_float64_does():
-    # at 1e-160 the squared distances are subnormal: float64 sees the third point equally far (1e-320) from both
+    # at 1e-160 the squared distances are subnormal (below 2.2e-308, IEEE 754 binary64): float64 sees the third point equally far (1e-320) from both
     # centres and gives it the first, though it is nearer the second; the kernel follows float64
     x = np.array([[-1.0], [1.0], [1e-5]]) * 1e-160
     _, labels, _ = lloyd(x, np.array([[[-1.0], [1.0]]]) * 1e-160, max_iterations=0)
@@ -117,14 +118,15 @@ def test_subnormal_squares_decide_as_float64_does():
 
 
 def test_values_whose_squares_overflow_are_a_programming_error():
+    # (1e155)**2 is beyond float64's largest value, 1.8e308 (IEEE 754 binary64)
     with pytest.raises(ValueError, match="above 1e.150"):
         lloyd(np.array([[0.0], [1e155]]), np.array([[[0.0], [1.0]]]))
 
 
 def test_a_converged_fit_is_a_fixed_point_to_the_last_bit():
     # a large mean and a small spread make the point-by-point cluster sums round differently from sums taken
-    # afresh; a fit still ends with every centre the mean of its points (summed in order) and every point at
-    # its nearest centre (squared distances summed in order), exactly
+    # afresh; a fit still ends at a fixed point of Lloyd's iteration (its definition, Lloyd 1982): every centre
+    # the mean of its points (summed in order), every point at its nearest centre (squares summed in order), exactly
     x = red_noise(3000, 6, 0.9, seed=24) * 2e-5 + 1e6
     centres, labels, _ = lloyd(x, kmeans_plus_plus(x, 3, 10, np.random.default_rng(24)))
     for r in range(10):
